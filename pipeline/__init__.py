@@ -1,0 +1,12 @@
+"""dynoqc: overnight engine test-cell data check (import package ``pipeline``)."""
+
+from __future__ import annotations
+
+from importlib.metadata import PackageNotFoundError, version
+
+try:
+    __version__ = version("dynoqc")
+except PackageNotFoundError:  # running from a source tree that is not installed
+    __version__ = "0.0.0+unknown"
+
+__all__ = ["__version__"]

@@ -1,0 +1,323 @@
+"""The cell config (TOML): reading, validation with helpful messages, resolved defaults.
+
+Contract (DESIGN.md, README "Config reference"): top-level tables ``[run]``, ``[fuel]``,
+``[input]``, ``[channels.<quantity>]``, ``[sampling]``, ``[checks]``. Unknown keys are errors
+with a "did you mean" hint.
+"""
+
+from __future__ import annotations
+
+import difflib
+import tomllib
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any
+
+from .errors import ConfigError
+from .fuels import Fuel, load_presets
+from .quantities import INPUTS
+
+REQUIRED_CHANNELS = ("time", "fuel_mass_flow", "air_mass_flow", "co2", "o2")
+
+_TOP_KEYS = {"run", "fuel", "input", "channels", "sampling", "checks"}
+_RUN_KEYS = {"name", "description"}
+_FUEL_KEYS = {"preset", "h_c", "o_c", "s_c", "n_c", "lhv_MJ_per_kg", "density_kg_per_m3"}
+_INPUT_KEYS = {"delimiter", "decimal", "encoding", "units_row", "timezone"}
+_CHANNEL_KEYS = {"column", "value", "unit", "basis", "carbon_number", "format", "range"}
+_SAMPLING_KEYS = {
+    "dryer_dewpoint_degC",
+    "dryer_pressure_kPa",
+    "analyzer_delay_s",
+    "intake_co2_ppm",
+    "not_sampling_carbon_fraction",
+}
+
+
+def _hint(word: str, options: set[str] | list[str]) -> str:
+    close = difflib.get_close_matches(word, sorted(options), n=1, cutoff=0.6)
+    return f' Did you mean "{close[0]}"?' if close else ""
+
+
+def _check_keys(table: dict[str, Any], allowed: set[str], where: str, path: Path) -> None:
+    for key in table:
+        if key not in allowed:
+            raise ConfigError(
+                f"{path}: unknown key '{key}' in {where}.{_hint(key, allowed)} "
+                f"Allowed keys: {', '.join(sorted(allowed))}."
+            )
+
+
+@dataclass(frozen=True)
+class Channel:
+    """How one canonical quantity is found in the logged data.
+
+    Either ``column`` (the logger's column name) or ``value`` (a constant, e.g. a barometer
+    reading taken by hand) is given, always with its ``unit``.
+    """
+
+    quantity: str
+    unit: str
+    column: str | None = None
+    value: float | None = None
+    basis: str | None = None  # "dry" / "wet" for gases and the air meter
+    carbon_number: float = 1.0  # THC: carbon atoms of the reported basis
+    format: str | None = None  # time: "seconds" (default) or "iso8601"
+    range: float | None = None  # analyzer full-scale range, in `unit`
+
+
+@dataclass(frozen=True)
+class InputOptions:
+    """How to read the logger file; None means "detect"."""
+
+    delimiter: str | None = None
+    decimal: str | None = None
+    encoding: str | None = None
+    units_row: bool | None = None
+    timezone: str | None = None
+
+
+@dataclass(frozen=True)
+class Sampling:
+    """Exhaust sampling set-up.
+
+    dryer_dewpoint_degC: outlet dew point of the sample chiller/dryer, for the water left in
+        the sample of dry-basis analyzers; None means bone dry.
+    dryer_pressure_kPa: absolute pressure at the dryer outlet; None means ambient pressure.
+    analyzer_delay_s: transport delay of the analyzers (fallback and override for alignment).
+    intake_co2_ppm: dry intake-air CO2, default 375 umol/mol (40 CFR 1065.655, 1065.643(b)).
+    not_sampling_carbon_fraction: below this exhaust carbon (CO2 + CO + THC, dry, mol/mol)
+        while fuel flows, the analyzers are taken as not sampling exhaust (common practice:
+        even very lean idle exhaust holds well above 1 % CO2).
+    """
+
+    dryer_dewpoint_degC: float | None = None
+    dryer_pressure_kPa: float | None = None
+    analyzer_delay_s: float | None = None
+    intake_co2_ppm: float = 375.0
+    not_sampling_carbon_fraction: float = 0.003
+
+
+@dataclass
+class Config:
+    """A resolved cell config."""
+
+    path: Path
+    run_name: str
+    description: str
+    fuel: Fuel
+    input: InputOptions
+    channels: dict[str, Channel]
+    sampling: Sampling
+    checks: dict[str, Any] = field(default_factory=dict)
+    raw: dict[str, Any] = field(default_factory=dict)
+
+    def to_dict(self) -> dict[str, Any]:
+        """The resolved config as plain data (defaults filled in), for the result file."""
+        fuel = {k: v for k, v in self.fuel.properties().items()}
+        return {
+            "run": {"name": self.run_name, "description": self.description},
+            "fuel": fuel,
+            "input": {k: v for k, v in asdict(self.input).items() if v is not None},
+            "channels": {
+                name: {k: v for k, v in asdict(ch).items() if v is not None and k != "quantity"}
+                for name, ch in self.channels.items()
+            },
+            "sampling": {k: v for k, v in asdict(self.sampling).items() if v is not None},
+            "checks": dict(self.checks),
+        }
+
+    def to_toml(self) -> str:
+        """The resolved config as TOML text."""
+        return dumps_toml(self.to_dict())
+
+
+def _toml_value(v: Any) -> str:
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, int | float):
+        return repr(v)
+    if isinstance(v, list | tuple):
+        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
+    s = str(v).replace("\\", "\\\\").replace('"', '\\"').replace("\t", "\\t").replace("\n", "\\n")
+    return f'"{s}"'
+
+
+def dumps_toml(data: dict[str, Any], prefix: str = "") -> str:
+    """Minimal TOML writer for nested dicts of scalars (tomllib only reads)."""
+    lines: list[str] = []
+    scalars = {k: v for k, v in data.items() if not isinstance(v, dict)}
+    tables = {k: v for k, v in data.items() if isinstance(v, dict)}
+    if prefix and (scalars or not tables):
+        lines.append(f"[{prefix}]")
+    for k, v in scalars.items():
+        lines.append(f"{k} = {_toml_value(v)}")
+    if lines:
+        lines.append("")
+    for k, v in tables.items():
+        lines.append(dumps_toml(v, f"{prefix}.{k}" if prefix else k))
+    return "\n".join(lines)
+
+
+def _number(value: Any, where: str, path: Path) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        raise ConfigError(f"{path}: {where} must be a number, got {value!r}.")
+    return float(value)
+
+
+def _parse_fuel(table: dict[str, Any], path: Path) -> Fuel:
+    _check_keys(table, _FUEL_KEYS, "[fuel]", path)
+    presets = load_presets()
+    if "preset" in table:
+        name = table["preset"]
+        if name not in presets:
+            raise ConfigError(
+                f"{path}: unknown fuel preset '{name}' in [fuel].{_hint(str(name), presets)} "
+                f"Presets: {', '.join(presets)} (see `dynoqc fuels`)."
+            )
+        explicit = set(table) - {"preset", "lhv_MJ_per_kg", "density_kg_per_m3"}
+        if explicit:
+            raise ConfigError(
+                f"{path}: [fuel] gives both preset and {', '.join(sorted(explicit))}; "
+                "use either a preset or explicit atomic ratios."
+            )
+        fuel = presets[name]
+        overrides = {
+            k: _number(table[k], f"[fuel].{k}", path)
+            for k in ("lhv_MJ_per_kg", "density_kg_per_m3")
+            if k in table
+        }
+        if overrides:
+            fuel = Fuel(**{**{f: getattr(fuel, f) for f in fuel.__dataclass_fields__}, **overrides})
+        return fuel
+    if "h_c" not in table:
+        raise ConfigError(
+            f"{path}: [fuel] needs either preset = \"...\" or the atomic ratio h_c "
+            "(with optional o_c, s_c, n_c)."
+        )
+    ratios = {k: _number(table.get(k, 0.0), f"[fuel].{k}", path) for k in ("h_c", "o_c", "s_c", "n_c")}
+    for k, v in ratios.items():
+        if v < 0:
+            raise ConfigError(f"{path}: [fuel].{k} must not be negative, got {v}.")
+    return Fuel(
+        name="custom",
+        **ratios,
+        lhv_MJ_per_kg=table.get("lhv_MJ_per_kg"),
+        density_kg_per_m3=table.get("density_kg_per_m3"),
+        source="explicit atomic ratios in the config",
+    )
+
+
+def _parse_channel(name: str, table: Any, path: Path) -> Channel:
+    where = f"[channels.{name}]"
+    if not isinstance(table, dict):
+        raise ConfigError(f"{path}: {where} must be a table with column and unit.")
+    _check_keys(table, _CHANNEL_KEYS, where, path)
+    q = INPUTS[name]
+    if ("column" in table) == ("value" in table):
+        raise ConfigError(f"{path}: {where} needs exactly one of column = \"...\" or value = ...")
+    if "unit" not in table:
+        if q.unit == "1" or name == "time":
+            unit = q.unit
+        else:
+            raise ConfigError(f"{path}: {where} needs unit = \"...\" (canonical: {q.unit}).")
+    else:
+        unit = str(table["unit"])
+    basis = table.get("basis")
+    if q.needs_basis:
+        if basis not in ("dry", "wet"):
+            raise ConfigError(
+                f"{path}: {where} basis must be \"dry\" or \"wet\", got {basis!r}."
+            )
+    elif basis is not None:
+        raise ConfigError(f"{path}: {where} has basis, but {name} is not a gas concentration.")
+    carbon_number = 1.0
+    if "carbon_number" in table:
+        if name != "thc":
+            raise ConfigError(f"{path}: {where} carbon_number applies to thc only.")
+        carbon_number = _number(table["carbon_number"], f"{where} carbon_number", path)
+        if carbon_number <= 0:
+            raise ConfigError(f"{path}: {where} carbon_number must be positive.")
+    fmt = table.get("format")
+    if fmt is not None and (name != "time" or fmt not in ("seconds", "iso8601")):
+        raise ConfigError(
+            f"{path}: {where} format must be \"seconds\" or \"iso8601\" and applies to time only."
+        )
+    value = _number(table["value"], f"{where} value", path) if "value" in table else None
+    if name == "time" and value is not None:
+        raise ConfigError(f"{path}: [channels.time] must name a column, not a value.")
+    rng = _number(table["range"], f"{where} range", path) if "range" in table else None
+    column = str(table["column"]) if "column" in table else None
+    return Channel(name, unit, column, value, basis, carbon_number, fmt, rng)
+
+
+def parse_config(raw: dict[str, Any], path: Path) -> Config:
+    """Validate a parsed TOML document and resolve defaults."""
+    _check_keys(raw, _TOP_KEYS, "the top level", path)
+    run = raw.get("run", {})
+    _check_keys(run, _RUN_KEYS, "[run]", path)
+    if "fuel" not in raw:
+        raise ConfigError(f"{path}: missing [fuel] table (preset = \"...\" or h_c = ...).")
+    fuel = _parse_fuel(raw["fuel"], path)
+
+    inp = raw.get("input", {})
+    _check_keys(inp, _INPUT_KEYS, "[input]", path)
+    if "decimal" in inp and inp["decimal"] not in (".", ","):
+        raise ConfigError(f"{path}: [input] decimal must be \".\" or \",\".")
+    if "delimiter" in inp and (not isinstance(inp["delimiter"], str) or len(inp["delimiter"]) != 1):
+        raise ConfigError(f"{path}: [input] delimiter must be one character, e.g. \",\" \";\" \"\\t\".")
+    input_opts = InputOptions(**inp)
+
+    channels_raw = raw.get("channels")
+    if not isinstance(channels_raw, dict) or not channels_raw:
+        raise ConfigError(f"{path}: missing [channels.<quantity>] tables.")
+    channels: dict[str, Channel] = {}
+    for name, table in channels_raw.items():
+        if name not in INPUTS:
+            raise ConfigError(
+                f"{path}: unknown quantity [channels.{name}].{_hint(name, INPUTS)} "
+                f"Known quantities: {', '.join(INPUTS)}."
+            )
+        channels[name] = _parse_channel(name, table, path)
+    missing = [q for q in REQUIRED_CHANNELS if q not in channels]
+    if missing:
+        raise ConfigError(
+            f"{path}: required channel(s) not mapped: {', '.join(missing)}. "
+            "Add a [channels.<quantity>] table with column and unit for each."
+        )
+    if "ambient_humidity" in channels and "intake_humidity" in channels:
+        raise ConfigError(f"{path}: give either ambient_humidity or intake_humidity, not both.")
+
+    samp = raw.get("sampling", {})
+    _check_keys(samp, _SAMPLING_KEYS, "[sampling]", path)
+    sampling = Sampling(**{k: _number(v, f"[sampling].{k}", path) for k, v in samp.items()})
+
+    checks = raw.get("checks", {})
+    if not isinstance(checks, dict):
+        raise ConfigError(f"{path}: [checks] must be a table.")
+    return Config(
+        path=path,
+        run_name=str(run.get("name", path.stem)),
+        description=str(run.get("description", "")),
+        fuel=fuel,
+        input=input_opts,
+        channels=channels,
+        sampling=sampling,
+        checks=dict(checks),
+        raw=raw,
+    )
+
+
+def load_config(path: str | Path) -> Config:
+    """Read and validate a cell config file."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise ConfigError(f"{path}: config file not found.") from None
+    except UnicodeDecodeError:
+        raise ConfigError(f"{path}: config file is not UTF-8 text.") from None
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"{path}: TOML syntax error: {exc}.") from None
+    return parse_config(raw, path)

@@ -1,0 +1,104 @@
+"""The data objects passed between stages.
+
+ingest -> :class:`RunData` -> balance -> checks -> :class:`ProcessResult` -> report.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from datetime import datetime
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+#: Columns of the flags table (DESIGN.md result-file contract), in order.
+FLAG_COLUMNS = ("start_s", "end_s", "check", "suspect", "severity", "value", "message")
+
+
+def empty_flags() -> pd.DataFrame:
+    """An empty flags table with the contract's columns and dtypes."""
+    return pd.DataFrame(
+        {
+            "start_s": pd.Series(dtype="float64"),
+            "end_s": pd.Series(dtype="float64"),
+            "check": pd.Series(dtype="object"),
+            "suspect": pd.Series(dtype="object"),
+            "severity": pd.Series(dtype="object"),
+            "value": pd.Series(dtype="float64"),
+            "message": pd.Series(dtype="object"),
+        }
+    )
+
+
+def make_flags(rows: list[dict[str, Any]]) -> pd.DataFrame:
+    """A flags table from a list of row dicts (missing suspect -> "", value -> NaN)."""
+    if not rows:
+        return empty_flags()
+    df = pd.DataFrame(rows)
+    for col in FLAG_COLUMNS:
+        if col not in df:
+            df[col] = float("nan") if col == "value" else ""
+    df = df[list(FLAG_COLUMNS)]
+    df["start_s"] = df["start_s"].astype("float64")
+    df["end_s"] = df["end_s"].astype("float64")
+    df["value"] = df["value"].astype("float64")
+    for col in ("check", "suspect", "severity", "message"):
+        df[col] = df[col].fillna("").astype(str).astype(object)
+    return df
+
+
+@dataclass
+class RunMeta:
+    """What ingest learned about the source file.
+
+    source: the input file; sha256: its SHA-256 hex digest; start_time: absolute start of the
+    run (UTC) when the log gives one; rows_read: data rows in the file; rows_dropped: rows
+    removed (each counted with its reason in ``warnings``); units_in: unit string used per
+    quantity; columns_in: logger column per quantity; bad_cells: non-numeric cells turned into
+    NaN, per quantity; warnings: plain-sentence notes for the console and the result file.
+    """
+
+    source: Path
+    sha256: str
+    start_time: datetime | None = None
+    rows_read: int = 0
+    rows_dropped: int = 0
+    units_in: dict[str, str] = field(default_factory=dict)
+    columns_in: dict[str, str] = field(default_factory=dict)
+    bad_cells: dict[str, int] = field(default_factory=dict)
+    metadata: dict[str, str] = field(default_factory=dict)
+    warnings: list[str] = field(default_factory=list)
+
+
+@dataclass
+class RunData:
+    """One logged run in canonical units on one time base.
+
+    ``frame`` has a float64 ``time`` column (s from run start, increasing) and one float64
+    column per mapped canonical quantity, in canonical units (quantities.INPUTS). Gas channels
+    are as measured (their dry/wet basis is in the config); THC is on a C1 basis.
+    """
+
+    frame: pd.DataFrame
+    meta: RunMeta
+
+
+@dataclass
+class ProcessResult:
+    """Everything the report stage writes.
+
+    series: ``time`` plus every series for ``/timeseries/`` (canonical units);
+    series_attrs: per series, attributes (``units``, ``long_name``, plus e.g. ``basis``);
+    flags: the flags table (FLAG_COLUMNS); tables: other tables, e.g. ``steady_points``;
+    group_attrs: attributes of other groups, e.g. ``{"alignment": {"analyzer_delay_s": 8.0}}``;
+    attrs: root attributes (provenance); summary: lines for the console.
+    """
+
+    series: pd.DataFrame
+    series_attrs: dict[str, dict[str, Any]]
+    flags: pd.DataFrame
+    tables: dict[str, pd.DataFrame] = field(default_factory=dict)
+    group_attrs: dict[str, dict[str, Any]] = field(default_factory=dict)
+    attrs: dict[str, Any] = field(default_factory=dict)
+    summary: list[str] = field(default_factory=list)

@@ -1,0 +1,74 @@
+"""The glossary: canonical quantity names, their units and long names (DESIGN.md contract).
+
+These names are used for config keys, DataFrame columns, HDF5 datasets and plot labels.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True)
+class Quantity:
+    """A canonical quantity: name, canonical unit (CF/UDUNITS spelling), long name, kind."""
+
+    name: str
+    unit: str
+    long_name: str
+    kind: str  # "time", "gas", "flow", "engine", "ambient", "sensor", "status", "derived"
+
+    @property
+    def needs_basis(self) -> bool:
+        """Gas concentrations and the air meter need ``basis = "dry"`` or ``"wet"``."""
+        return self.kind == "gas" or self.name == "air_mass_flow"
+
+
+_INPUTS = [
+    Quantity("time", "s", "time since start of run", "time"),
+    Quantity("speed", "rpm", "engine speed", "engine"),
+    Quantity("torque", "N.m", "engine brake torque", "engine"),
+    Quantity("fuel_mass_flow", "kg/h", "fuel mass flow", "flow"),
+    Quantity("air_mass_flow", "kg/h", "intake air mass flow", "flow"),
+    Quantity("co2", "mol/mol", "CO2 mole fraction", "gas"),
+    Quantity("co", "mol/mol", "CO mole fraction", "gas"),
+    Quantity("o2", "mol/mol", "O2 mole fraction", "gas"),
+    Quantity("nox", "mol/mol", "NOx mole fraction", "gas"),
+    Quantity("no", "mol/mol", "NO mole fraction", "gas"),
+    Quantity("no2", "mol/mol", "NO2 mole fraction", "gas"),
+    Quantity("thc", "mol/mol", "total hydrocarbons mole fraction, C1 basis", "gas"),
+    Quantity("h2", "mol/mol", "H2 mole fraction", "gas"),
+    Quantity("lambda_sensor", "1", "lambda from the wide-band exhaust sensor", "sensor"),
+    Quantity("ambient_temperature", "degC", "intake air temperature", "ambient"),
+    Quantity("ambient_pressure", "kPa", "intake air absolute pressure", "ambient"),
+    Quantity("ambient_humidity", "percent", "intake air relative humidity", "ambient"),
+    Quantity("intake_humidity", "g/kg", "intake air humidity, g water per kg dry air", "ambient"),
+    Quantity("exhaust_pressure", "kPa", "exhaust (sample) absolute pressure", "ambient"),
+    Quantity("sample_line_temperature", "degC", "sample line temperature", "ambient"),
+    Quantity("analyzer_mode", "1", "analyzer status code (0 = sampling exhaust)", "status"),
+]
+
+#: Canonical input quantities, keyed by name.
+INPUTS: dict[str, Quantity] = {q.name: q for q in _INPUTS}
+
+_DERIVED = [
+    Quantity("lambda_flow", "1", "lambda from measured air and fuel mass flows", "derived"),
+    Quantity("lambda_carbon", "1", "lambda from exhaust carbon balance (40 CFR 1065.655)", "derived"),
+    Quantity("lambda_oxygen", "1", "lambda from exhaust oxygen balance (Brettschneider)", "derived"),
+    Quantity("intake_water_fraction", "mol/mol", "water mole fraction of the intake air", "derived"),
+    Quantity("exhaust_water_fraction", "mol/mol", "water mole fraction of the wet exhaust", "derived"),
+    Quantity("air_dry_mass_flow", "kg/h", "intake dry-air mass flow", "derived"),
+    Quantity("afr_flow", "1", "measured dry-air/fuel mass ratio", "derived"),
+    Quantity("sampling", "1", "1 where the analyzers sample exhaust, 0 where not", "derived"),
+    Quantity("valid", "1", "1 where all three lambda estimates are defined", "derived"),
+]
+
+#: Derived series written by the balance stage, keyed by name.
+DERIVED: dict[str, Quantity] = {q.name: q for q in _DERIVED}
+
+#: Concentration channels that the analyzers deliver (subject to transport delay and basis).
+GASES = tuple(q.name for q in _INPUTS if q.kind == "gas")
+
+
+def describe(name: str) -> Quantity | None:
+    """The Quantity for a canonical name, or None if it is not in the glossary."""
+    return INPUTS.get(name) or DERIVED.get(name)
