@@ -30,6 +30,7 @@ _SAMPLING_KEYS = {
     "analyzer_delay_s",
     "intake_co2_ppm",
     "not_sampling_carbon_fraction",
+    "nox_no2_fraction",
 }
 
 
@@ -88,6 +89,9 @@ class Sampling:
     not_sampling_carbon_fraction: below this exhaust carbon (CO2 + CO + THC, dry, mol/mol)
         while fuel flows, the analyzers are taken as not sampling exhaust (common practice:
         even very lean idle exhaust holds well above 1 % CO2).
+    nox_no2_fraction: share of NO2 in a NOx reading when NO and NO2 are not measured apart.
+        40 CFR 1065.656(c)(1): 0 for stoichiometric engines, 0.25 for lean-burn engines, 0.75
+        with NO2-storage aftertreatment.
     """
 
     dryer_dewpoint_degC: float | None = None
@@ -95,6 +99,7 @@ class Sampling:
     analyzer_delay_s: float | None = None
     intake_co2_ppm: float = 375.0
     not_sampling_carbon_fraction: float = 0.003
+    nox_no2_fraction: float = 0.0
 
 
 @dataclass

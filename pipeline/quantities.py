@@ -56,6 +56,7 @@ _DERIVED = [
     Quantity("lambda_oxygen", "1", "lambda from exhaust oxygen balance (Brettschneider)", "derived"),
     Quantity("intake_water_fraction", "mol/mol", "water mole fraction of the intake air", "derived"),
     Quantity("exhaust_water_fraction", "mol/mol", "water mole fraction of the wet exhaust", "derived"),
+    Quantity("exhaust_dewpoint", "degC", "dew point of the exhaust at exhaust pressure", "derived"),
     Quantity("air_dry_mass_flow", "kg/h", "intake dry-air mass flow", "derived"),
     Quantity("afr_flow", "1", "measured dry-air/fuel mass ratio", "derived"),
     Quantity("sampling", "1", "1 where the analyzers sample exhaust, 0 where not", "derived"),

@@ -1,0 +1,229 @@
+"""Balance stage: intake humidity, the three lambda estimates, exhaust water and dew point.
+
+A pure function of ingest's frame (canonical units, analyzers already time-aligned) and the
+config; see :func:`compute_balance`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .. import constants as C
+from ..config import Config
+from ..data import make_flags
+from ..errors import ConfigError
+from ..intervals import mask_to_intervals
+from .chemical import chemical_balance
+from .flows import lambda_from_flows
+from .humidity import (
+    dewpoint_from_x_h2o,
+    dry_air_from_wet,
+    x_h2o_from_dewpoint,
+    x_h2o_from_g_per_kg,
+    x_h2o_from_rh,
+)
+from .oxygen import lambda_brettschneider
+
+__all__ = ["BalanceResult", "compute_balance", "chemical_balance", "lambda_brettschneider"]
+
+
+@dataclass
+class BalanceResult:
+    """Derived series (same rows as the input frame), flags, notes and attributes."""
+
+    derived: pd.DataFrame
+    flags: pd.DataFrame
+    warnings: list[str] = field(default_factory=list)
+    attrs: dict[str, Any] = field(default_factory=dict)
+
+
+def _col(frame: pd.DataFrame, name: str) -> np.ndarray | None:
+    return frame[name].to_numpy(dtype=float) if name in frame else None
+
+
+def intake_water_fraction(frame: pd.DataFrame, warnings: list[str]) -> np.ndarray:
+    """Water mole fraction of the intake air from the logged ambient channels.
+
+    ``ambient_humidity`` (% RH) with ``ambient_temperature`` and ``ambient_pressure``
+    (40 CFR 1065.645(c)), or ``intake_humidity`` in g/kg dry air. Without either, dry intake
+    air is assumed and a warning says so.
+    """
+    n = len(frame)
+    p = _col(frame, "ambient_pressure")
+    if p is None:
+        p = np.full(n, C.P_STD_KPA)
+    if "intake_humidity" in frame:
+        return x_h2o_from_g_per_kg(frame["intake_humidity"].to_numpy(float))
+    if "ambient_humidity" in frame:
+        t = _col(frame, "ambient_temperature")
+        if t is None:
+            raise ConfigError(
+                "[channels.ambient_humidity] is mapped but [channels.ambient_temperature] is "
+                "not: relative humidity needs the air temperature. Map the intake air "
+                "temperature channel (or give its value)."
+            )
+        if "ambient_pressure" not in frame:
+            warnings.append(
+                "ambient_pressure not mapped: the intake humidity assumes 101.325 kPa."
+            )
+        return x_h2o_from_rh(frame["ambient_humidity"].to_numpy(float), t, p)
+    warnings.append(
+        "No intake humidity channel mapped (ambient_humidity or intake_humidity): dry intake "
+        "air assumed, which overstates dry air and lambda_flow by about 1.6 % per 10 g/kg of "
+        "real humidity."
+    )
+    return np.zeros(n)
+
+
+def compute_balance(frame: pd.DataFrame, config: Config) -> BalanceResult:
+    """Compute lambda_flow, lambda_carbon, lambda_oxygen, water and dew point for every sample.
+
+    - lambda_flow: measured air (made dry with the intake humidity, REFERENCES 1.6) over fuel,
+      divided by the fuel's stoichiometric dry-air ratio.
+    - lambda_carbon: 40 CFR 1065.655 chemical balance (:mod:`.chemical`); CO2, CO, THC, NOx,
+      H2 (estimated unless logged), intake humidity and CO2; not the O2 analyzer.
+    - lambda_oxygen: Brettschneider (:mod:`.oxygen`) on dry-basis readings, wet readings
+      converted with the chemical balance's exhaust water, intake-air CO2 removed.
+    - exhaust_water_fraction and exhaust_dewpoint (IAPWS-IF97 saturation line at the exhaust
+      pressure, else the ambient pressure).
+
+    Where the analyzers do not sample exhaust (``analyzer_mode`` not 0, or exhaust carbon below
+    ``[sampling] not_sampling_carbon_fraction``) the exhaust-based values are NaN and, while
+    fuel flows, an ``analyzer_not_sampling`` flag is raised.
+    """
+    fuel = config.fuel
+    s = config.sampling
+    warnings: list[str] = []
+    n = len(frame)
+    t = frame["time"].to_numpy(float)
+
+    x_h2o_int = intake_water_fraction(frame, warnings)
+    air_basis = config.channels["air_mass_flow"].basis
+    air = frame["air_mass_flow"].to_numpy(float)
+    air_dry = dry_air_from_wet(air, x_h2o_int) if air_basis == "wet" else air
+    fuel_flow = frame["fuel_mass_flow"].to_numpy(float)
+    lam_flow = lambda_from_flows(air_dry, fuel_flow, fuel)
+
+    # Analyzer readings, as measured; NOx split into NO/NO2 when not measured apart.
+    gases: dict[str, np.ndarray | None] = {
+        g: _col(frame, g) for g in ("co2", "co", "thc", "no", "no2", "h2", "o2")
+    }
+    basis = {g: ch.basis for g, ch in config.channels.items() if ch.basis and g != "air_mass_flow"}
+    nox = _col(frame, "nox")
+    if nox is not None and gases["no"] is None and gases["no2"] is None:
+        gases["no"] = nox * (1.0 - s.nox_no2_fraction)
+        gases["no2"] = nox * s.nox_no2_fraction
+        basis["no"] = basis["no2"] = basis["nox"]
+    for opt in ("co", "thc"):
+        if gases[opt] is None:
+            warnings.append(f"{opt} not mapped: taken as zero in the carbon and oxygen balances.")
+
+    p_amb = _col(frame, "ambient_pressure")
+    if p_amb is None:
+        p_amb = np.full(n, C.P_STD_KPA)
+    if s.dryer_dewpoint_degC is not None:
+        p_dryer = s.dryer_pressure_kPa if s.dryer_pressure_kPa is not None else p_amb
+        x_h2o_dryer = x_h2o_from_dewpoint(s.dryer_dewpoint_degC, p_dryer) * np.ones(n)
+    else:
+        x_h2o_dryer = np.zeros(n)
+
+    # Sampling state.
+    carbon = np.zeros(n)
+    for g in ("co2", "co", "thc"):
+        if gases[g] is not None:
+            carbon = carbon + np.nan_to_num(gases[g], nan=0.0)
+    not_sampling = carbon < s.not_sampling_carbon_fraction
+    mode = _col(frame, "analyzer_mode")
+    if mode is not None:
+        not_sampling |= np.isfinite(mode) & (mode != 0)
+    sampling = ~not_sampling
+
+    def masked(x: np.ndarray | None) -> np.ndarray | None:
+        return None if x is None else np.where(sampling, x, np.nan)
+
+    bal = chemical_balance(
+        fuel,
+        masked(gases["co2"]),
+        masked(gases["co"]),
+        masked(gases["thc"]),
+        masked(gases["no"]),
+        masked(gases["no2"]),
+        masked(gases["h2"]),
+        x_h2o_int=x_h2o_int,
+        basis=basis,
+        x_h2o_dryer=x_h2o_dryer,
+        x_co2_int_dry=s.intake_co2_ppm * 1e-6,
+    )
+    lam_carbon = bal.lambda_
+    # Oxygen balance on dry readings: the O2 analyzer's own basis with the same water rules.
+    o2 = masked(gases["o2"])
+    o2_water = (
+        bal.x_h2o_exh if basis.get("o2") == "wet" else np.minimum(x_h2o_dryer, bal.x_h2o_exh)
+    )
+    o2_dry = o2 / (1.0 - o2_water)
+    lam_oxygen = lambda_brettschneider(
+        fuel,
+        bal.dry["co2"],
+        o2_dry,
+        bal.dry["co"],
+        bal.dry["thc"],
+        bal.dry["no"],
+        intake_co2_dry=s.intake_co2_ppm * 1e-6,
+        h2_dry=bal.x_h2_dry,
+    )
+
+    def finite(x: np.ndarray) -> np.ndarray:
+        return np.where(np.isfinite(x) & (x > 0), x, np.nan)
+
+    lam_carbon, lam_oxygen = finite(lam_carbon), finite(lam_oxygen)
+    x_h2o_exh = np.where(np.isfinite(lam_carbon), bal.x_h2o_exh, np.nan)
+    p_exh = _col(frame, "exhaust_pressure")
+    dew = dewpoint_from_x_h2o(x_h2o_exh, p_exh if p_exh is not None else p_amb)
+
+    valid = np.isfinite(lam_flow) & np.isfinite(lam_carbon) & np.isfinite(lam_oxygen)
+    derived = pd.DataFrame(
+        {
+            "lambda_flow": lam_flow,
+            "lambda_carbon": lam_carbon,
+            "lambda_oxygen": lam_oxygen,
+            "intake_water_fraction": x_h2o_int,
+            "exhaust_water_fraction": x_h2o_exh,
+            "exhaust_dewpoint": dew,
+            "air_dry_mass_flow": air_dry,
+            "sampling": sampling.astype(float),
+            "valid": valid.astype(float),
+        }
+    )
+
+    fuel_on = np.nan_to_num(fuel_flow, nan=0.0) > 0
+    rows = []
+    for start, end, i0, i1 in mask_to_intervals(t, not_sampling & fuel_on):
+        why = (
+            "analyzer_mode reports zero/span/purge"
+            if mode is not None and np.any(np.nan_to_num(mode[i0 : i1 + 1]) != 0)
+            else "exhaust carbon reads near zero while fuel flows"
+        )
+        rows.append(
+            {
+                "start_s": start,
+                "end_s": end,
+                "check": "analyzer_not_sampling",
+                "suspect": "",
+                "severity": "info",
+                "value": float(i1 - i0 + 1),
+                "message": f"Analyzers not sampling exhaust ({why}); exhaust-based values "
+                f"are NaN for these {i1 - i0 + 1} samples.",
+            }
+        )
+    attrs = {
+        "dryer_water_fraction_mean": float(np.nanmean(x_h2o_dryer)) if n else 0.0,
+        "intake_co2_dry_ppm": s.intake_co2_ppm,
+        "nox_no2_fraction": s.nox_no2_fraction,
+        "chemical_balance_iterations": bal.iterations,
+        "water_gas_constant": C.K_WATER_GAS,
+    }
+    return BalanceResult(derived=derived, flags=make_flags(rows), warnings=warnings, attrs=attrs)

@@ -1,0 +1,38 @@
+"""Boolean masks over a time base <-> lists of intervals (vectorised)."""
+
+from __future__ import annotations
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+
+def runs(mask: ArrayLike) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
+    """Start and end indices (inclusive) of the runs of True in a 1-D mask."""
+    m = np.asarray(mask, dtype=bool)
+    if m.size == 0:
+        return np.empty(0, np.intp), np.empty(0, np.intp)
+    edges = np.diff(np.concatenate(([0], m.view(np.int8), [0])))
+    starts = np.flatnonzero(edges == 1)
+    ends = np.flatnonzero(edges == -1) - 1
+    return starts, ends
+
+
+def mask_to_intervals(
+    time: ArrayLike, mask: ArrayLike, *, min_duration_s: float = 0.0, merge_gap_s: float = 0.0
+) -> list[tuple[float, float, int, int]]:
+    """Intervals (start_s, end_s, first index, last index) where ``mask`` is True.
+
+    Runs closer than ``merge_gap_s`` are merged; runs shorter than ``min_duration_s`` (from the
+    first to the last flagged sample) are dropped after merging.
+    """
+    t = np.asarray(time, dtype=float)
+    s, e = runs(mask)
+    if s.size == 0:
+        return []
+    if merge_gap_s > 0 and s.size > 1:
+        keep = (t[s[1:]] - t[e[:-1]]) > merge_gap_s
+        s = np.concatenate(([s[0]], s[1:][keep]))
+        e = np.concatenate((e[:-1][keep], [e[-1]]))
+    dur = t[e] - t[s]
+    ok = dur >= min_duration_s
+    return [(float(t[a]), float(t[b]), int(a), int(b)) for a, b in zip(s[ok], e[ok], strict=True)]
