@@ -1,0 +1,31 @@
+"""Masks to intervals and data_gap flags (bookkeeping; no physics involved)."""
+
+import numpy as np
+
+from pipeline.intervals import gap_flags, mask_to_intervals, runs
+
+
+def test_runs_and_intervals():
+    m = np.array([0, 1, 1, 0, 0, 1, 0, 1, 1, 1], bool)
+    s, e = runs(m)
+    assert s.tolist() == [1, 5, 7] and e.tolist() == [2, 5, 9]
+    t = np.arange(10.0)
+    assert [iv[:2] for iv in mask_to_intervals(t, m)] == [(1.0, 2.0), (5.0, 5.0), (7.0, 9.0)]
+    merged = mask_to_intervals(t, m, merge_gap_s=2.0)
+    assert [iv[:2] for iv in merged] == [(1.0, 9.0)]
+    assert [iv[:2] for iv in mask_to_intervals(t, m, min_duration_s=1.5)] == [(7.0, 9.0)]
+
+
+def test_gap_flags_group_channels_and_time_holes():
+    t = np.r_[np.arange(0.0, 50.0), np.arange(80.0, 100.0)]  # 30 s hole in the log
+    a = np.ones(t.size)
+    b = np.ones(t.size)
+    a[10:15] = np.nan
+    b[10:15] = np.nan
+    b[30] = np.nan  # a single bad cell: not a gap
+    rows = gap_flags(t, {"co2": a, "o2": b})
+    assert len(rows) == 2
+    first, hole = rows
+    assert first["suspect"] == "co2|o2"
+    assert (first["start_s"], first["end_s"]) == (9.0, 15.0)
+    assert hole["suspect"] == "time" and hole["value"] == 31.0
