@@ -1,0 +1,308 @@
+"""Write the HDF5 result file (DESIGN.md "Result file (contract)").
+
+Layout written by :func:`write_result`::
+
+    /                      root attributes: provenance from ``ProcessResult.attrs`` plus
+                           ``Conventions = "CF-1.10"`` (dict values stored as JSON text)
+    /timeseries/time       float64 [s]; dimension scale; ``units`` = ``seconds since <UTC>``
+                           when ``attrs["start_time_utc"]`` is known, else ``s``
+    /timeseries/<series>   1-D float64, gzip(4) + shuffle, chunked, fill value NaN,
+                           attributes ``units``, ``long_name`` (+ any given), time attached
+    /flags/<column>        the flags table as equal-length 1-D columns (FLAG_COLUMNS first)
+    /<table>/<column>      every other table, e.g. ``/steady_points/``, the same way
+    /<group>               attribute-only groups, e.g. ``/alignment``
+
+Tables are groups of 1-D columns, never compound types: compound types with string members
+are skipped by netCDF/xarray readers (ECOSYSTEM.md §3.3). Strings are variable-length UTF-8.
+Missing values are NaN; infinite values are written as NaN.
+
+The file is written to a temporary name in the target directory and renamed when complete, so
+a file at the final name is always whole (ECOSYSTEM.md §3.2).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from collections.abc import Mapping
+from datetime import UTC, date, datetime
+from pathlib import Path
+from typing import Any
+
+import h5py
+import numpy as np
+import pandas as pd
+
+from ..data import FLAG_COLUMNS, ProcessResult
+from ..quantities import describe
+
+#: CF conventions version declared in the root attributes.
+CONVENTIONS = "CF-1.10"
+
+#: HDF5 object format bounds: readable by HDF5 >= 1.10 (ECOSYSTEM.md §3.1).
+LIBVER = ("earliest", "v110")
+
+#: Samples per chunk for time series (64 Ki float64 = 512 KiB, ECOSYSTEM.md §3.1).
+CHUNK_SAMPLES = 65536
+
+#: gzip level for time series (portable: every HDF5 build has deflate).
+GZIP_LEVEL = 4
+
+#: Units and long names of the flags table columns.
+FLAG_COLUMN_ATTRS: dict[str, dict[str, str]] = {
+    "start_s": {"units": "s", "long_name": "start of the flagged interval, time since start"},
+    "end_s": {"units": "s", "long_name": "end of the flagged interval, time since start"},
+    "check": {"long_name": "name of the check that raised the flag"},
+    "suspect": {"long_name": "suspected instrument(s), canonical channel names, |-separated"},
+    "severity": {"long_name": "severity: info, warning or error"},
+    "value": {"long_name": "size of the finding, in the units given by the message"},
+    "message": {"long_name": "one-sentence description of the finding"},
+}
+
+_STR = h5py.string_dtype(encoding="utf-8")
+
+
+def iso_utc(value: datetime | str) -> str:
+    """An ISO 8601 UTC timestamp ``YYYY-MM-DDTHH:MM:SS[.ffffff]Z``.
+
+    Naive datetimes are taken as UTC (the ingest stage stores the start time in UTC);
+    aware ones are converted. Strings are parsed with :meth:`datetime.fromisoformat`.
+    """
+    dt = datetime.fromisoformat(value) if isinstance(value, str) else value
+    if not isinstance(dt, datetime):
+        raise ValueError(f"expected a datetime or ISO 8601 text, got {value!r}")
+    dt = dt.replace(tzinfo=UTC) if dt.tzinfo is None else dt.astimezone(UTC)
+    spec = "microseconds" if dt.microsecond else "seconds"
+    text = dt.replace(tzinfo=None).isoformat(timespec=spec)
+    return text + "Z"
+
+
+def _attr_value(key: str, value: Any) -> Any:
+    """Convert a Python value into something h5py stores portably as an attribute."""
+    if isinstance(value, Mapping):
+        return json.dumps(value, sort_keys=True, default=str, ensure_ascii=False)
+    if isinstance(value, datetime):
+        return iso_utc(value)
+    if isinstance(value, date | Path):
+        return value.isoformat() if isinstance(value, date) else str(value)
+    if isinstance(value, bool | np.bool_):
+        return np.int8(value)  # HDF5 has no portable boolean; 0/1 reads everywhere
+    if isinstance(value, str | int | float | np.integer | np.floating):
+        return value
+    if isinstance(value, list | tuple | np.ndarray):
+        arr = np.asarray(value)
+        if arr.dtype.kind in "iuf" and arr.ndim == 1:
+            return arr
+        if arr.ndim == 1 and all(isinstance(v, str) for v in value):
+            return np.array(list(value), dtype=_STR)
+        return json.dumps(np.asarray(value, dtype=object).tolist(), default=str)
+    raise ValueError(
+        f"attribute {key!r}: cannot store a value of type {type(value).__name__} "
+        "(use text, numbers, lists or dicts)"
+    )
+
+
+def _set_attrs(obj: h5py.HLObject, attrs: Mapping[str, Any]) -> None:
+    """Set attributes on a group or dataset; ``None`` values (unknown) are left out."""
+    for key, value in attrs.items():
+        if value is None:
+            continue
+        obj.attrs[key] = _attr_value(key, value)
+
+
+def _finite_or_nan(values: Any, name: str) -> np.ndarray:
+    """``values`` as float64 with every infinity replaced by NaN (never a sentinel or inf)."""
+    try:
+        arr = np.array(values, dtype=np.float64)  # a copy: the caller's data stay untouched
+    except (TypeError, ValueError) as exc:
+        raise ValueError(f"series {name!r} is not numeric: {exc}") from exc
+    arr[np.isinf(arr)] = np.nan
+    return arr
+
+
+def _series_attrs(name: str, given: Mapping[str, Any] | None) -> dict[str, Any]:
+    """Attributes of one series: the given ones, with units/long_name from the glossary."""
+    attrs = dict(given or {})
+    q = describe(name)
+    if q is not None:
+        attrs.setdefault("units", q.unit)
+        attrs.setdefault("long_name", q.long_name)
+    missing = [k for k in ("units", "long_name") if not attrs.get(k)]
+    if missing:
+        raise ValueError(
+            f"series {name!r} has no {' and no '.join(missing)}: give them in "
+            "ProcessResult.series_attrs or add the quantity to pipeline.quantities"
+        )
+    return attrs
+
+
+def _write_timeseries(f: h5py.File, result: ProcessResult) -> None:
+    series = result.series
+    if "time" not in series.columns:
+        raise ValueError("ProcessResult.series has no 'time' column")
+    if series.columns.duplicated().any():
+        dup = sorted(set(series.columns[series.columns.duplicated()]))
+        raise ValueError(f"ProcessResult.series has duplicate columns: {', '.join(dup)}")
+    n = len(series)
+    g = f.create_group("timeseries", track_order=True)
+    storage: dict[str, Any] = {"fillvalue": np.nan, "track_times": False}
+    if n > 0:
+        storage |= {
+            "chunks": (min(CHUNK_SAMPLES, n),),
+            "compression": "gzip",
+            "compression_opts": GZIP_LEVEL,
+            "shuffle": True,
+        }
+    names = ["time"] + [c for c in series.columns if c != "time"]
+    all_attrs = {name: _series_attrs(name, result.series_attrs.get(name)) for name in names}
+
+    time_attrs = all_attrs["time"]
+    start = result.attrs.get("start_time_utc")
+    time_attrs["units"] = f"seconds since {iso_utc(start)}" if start else "s"
+    if start:
+        time_attrs.setdefault("calendar", "standard")
+    time_attrs.setdefault("axis", "T")
+    time_attrs.setdefault("standard_name", "time")
+
+    datasets = {}
+    for name in names:
+        ds = g.create_dataset(name, data=_finite_or_nan(series[name].to_numpy(), name), **storage)
+        _set_attrs(ds, all_attrs[name])
+        datasets[name] = ds
+    tm = datasets["time"]
+    tm.make_scale("time")
+    for name in names[1:]:
+        datasets[name].dims[0].attach_scale(tm)
+
+
+def _is_missing(v: Any) -> bool:
+    """True for None, pd.NA, NaT and float NaN (written as empty text in string columns)."""
+    return v is None or v is pd.NA or v is pd.NaT or (isinstance(v, float) and np.isnan(v))
+
+
+def _column_data(table: str, col: str, values: pd.Series) -> tuple[np.ndarray, Any]:
+    """One table column as (array, h5py dtype): float64, int64 or variable-length UTF-8."""
+    kind = values.dtype.kind
+    if kind == "b":
+        return values.to_numpy(dtype=np.int64), np.int64
+    if kind in "iu":
+        return values.to_numpy(dtype=np.int64), np.int64
+    if kind == "f":
+        return _finite_or_nan(values.to_numpy(), f"{table}/{col}"), np.float64
+    if kind == "M":
+        text = [iso_utc(v.to_pydatetime()) if not pd.isna(v) else "" for v in values]
+        return np.array(text, dtype=object), _STR
+    if pd.api.types.is_numeric_dtype(values.dtype):  # nullable integer / float extension types
+        return _finite_or_nan(values.to_numpy(dtype=np.float64, na_value=np.nan), col), np.float64
+    text = ["" if _is_missing(v) else str(v) for v in values]
+    return np.array(text, dtype=object), _STR
+
+
+def _write_table(
+    f: h5py.File,
+    name: str,
+    df: pd.DataFrame,
+    column_attrs: Mapping[str, Mapping[str, Any]] | None = None,
+) -> None:
+    """A table as a group of equal-length 1-D column datasets (column order kept)."""
+    if df.columns.duplicated().any():
+        raise ValueError(f"table {name!r} has duplicate column names")
+    g = f.require_group(name) if name in f else f.create_group(name, track_order=True)
+    units = dict(df.attrs.get("units", {}) or {})
+    long_names = dict(df.attrs.get("long_names", {}) or {})
+    for col in df.columns:
+        data, dtype = _column_data(name, str(col), df[col])
+        kwargs: dict[str, Any] = {"track_times": False}
+        if dtype is np.float64:
+            kwargs["fillvalue"] = np.nan
+        ds = g.create_dataset(str(col), data=data, dtype=dtype, **kwargs)
+        attrs = dict((column_attrs or {}).get(str(col), {}))
+        q = describe(str(col))
+        if str(col) in units:
+            attrs["units"] = units[str(col)]
+        elif q is not None and dtype is not _STR:
+            attrs.setdefault("units", q.unit)
+        if str(col) in long_names:
+            attrs["long_name"] = long_names[str(col)]
+        elif q is not None:
+            attrs.setdefault("long_name", q.long_name)
+        _set_attrs(ds, attrs)
+
+
+def _write_flags(f: h5py.File, flags: pd.DataFrame | None) -> None:
+    if flags is None:
+        flags = pd.DataFrame(columns=list(FLAG_COLUMNS))
+    missing = [c for c in FLAG_COLUMNS if c not in flags.columns]
+    if missing and len(flags):
+        raise ValueError(f"flags table lacks the column(s) {', '.join(missing)} (see FLAG_COLUMNS)")
+    out = flags.copy()
+    for col in FLAG_COLUMNS:
+        if col not in out.columns:
+            numeric = col in ("start_s", "end_s", "value")
+            out[col] = pd.Series(dtype="float64" if numeric else object)
+    for col in ("start_s", "end_s", "value"):
+        out[col] = pd.to_numeric(out[col], errors="raise").astype("float64")
+    for col in ("check", "suspect", "severity", "message"):
+        out[col] = out[col].astype(object)
+    out = out[list(FLAG_COLUMNS) + [c for c in out.columns if c not in FLAG_COLUMNS]]
+    _write_table(f, "flags", out, FLAG_COLUMN_ATTRS)
+
+
+def _fill(f: h5py.File, result: ProcessResult) -> None:
+    root_attrs = dict(result.attrs)
+    root_attrs["Conventions"] = CONVENTIONS
+    if root_attrs.get("start_time_utc"):
+        root_attrs["start_time_utc"] = iso_utc(root_attrs["start_time_utc"])
+    if not root_attrs.get("created_utc"):
+        root_attrs["created_utc"] = iso_utc(datetime.now(UTC).replace(microsecond=0))
+    if not root_attrs.get("tool_version"):
+        from .. import __version__
+
+        root_attrs["tool_version"] = __version__
+    _set_attrs(f, root_attrs)
+    _write_timeseries(f, result)
+    _write_flags(f, result.flags)
+    for name, table in result.tables.items():
+        if name in ("timeseries", "flags"):
+            raise ValueError(f"table name {name!r} is reserved by the result file layout")
+        _write_table(f, name, table)
+    for name, attrs in result.group_attrs.items():
+        g = f.require_group(name) if name in f else f.create_group(name, track_order=True)
+        _set_attrs(g, attrs)
+
+
+def _umask() -> int:
+    """The process umask (read by setting and restoring it)."""
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+def write_result(path: Path, result: ProcessResult) -> Path:
+    """Write ``result`` to the HDF5 file ``path`` atomically and return the path.
+
+    The file is built under a temporary name (``.<name>.*.tmp``) in the same directory,
+    closed and renamed with :func:`os.replace`, so an existing result at ``path`` is only
+    replaced by a complete new one. On any exception, including ``KeyboardInterrupt``, the
+    temporary file is removed and the exception re-raised.
+
+    Raises ValueError when a series has no ``units`` or ``long_name`` (neither given in
+    ``result.series_attrs`` nor in the glossary), when ``time`` is missing, or when a value
+    cannot be stored.
+    """
+    path = Path(path)
+    fd, tmp_name = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    os.close(fd)
+    tmp = Path(tmp_name)
+    try:
+        # mkstemp creates the file 0600; a result file should be readable as usual.
+        os.chmod(tmp, 0o666 & ~_umask())
+        # The temporary file is ours alone: no HDF5 file locking (fails on some NFS mounts).
+        with h5py.File(tmp, "w", libver=LIBVER, track_order=True, locking=False) as f:
+            _fill(f, result)
+        os.replace(tmp, path)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
+    return path

@@ -1,0 +1,165 @@
+"""Read a dynoqc HDF5 result file back into pandas (DESIGN.md "Result file (contract)").
+
+``pandas.read_hdf`` only opens files in pandas' own PyTables layout, so this small reader
+returns the series and tables of a result file as DataFrames with their units. Everything a
+report shows can be re-plotted from the :class:`ResultFile` alone.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import h5py
+import numpy as np
+import pandas as pd
+
+from .data import FLAG_COLUMNS, empty_flags
+
+#: Attributes HDF5 manages itself for dimension scales (not part of our metadata).
+_SCALE_ATTRS = frozenset({"CLASS", "NAME", "DIMENSION_LIST", "REFERENCE_LIST", "_Netcdf4Dimid"})
+
+_SINCE = "seconds since "
+
+
+@dataclass
+class ResultFile:
+    """The content of a result file.
+
+    timeseries: one float64 column per ``/timeseries/`` dataset, ``time`` first [s since
+    start]; units / long_names: per series; series_attrs: all attributes per series (decoded);
+    flags: the ``/flags/`` table (FLAG_COLUMNS, strings as ``str``); tables: every other
+    table group (e.g. ``steady_points``), column units in ``df.attrs["units"]``;
+    group_attrs: attributes of every group other than ``/timeseries`` and ``/flags`` that has
+    any (e.g. ``alignment``); attrs: root attributes (JSON objects decoded to dicts);
+    start_time: absolute start of the run (UTC) when the time units carry it.
+    """
+
+    timeseries: pd.DataFrame
+    units: dict[str, str]
+    long_names: dict[str, str]
+    series_attrs: dict[str, dict[str, Any]]
+    flags: pd.DataFrame
+    tables: dict[str, pd.DataFrame] = field(default_factory=dict)
+    group_attrs: dict[str, dict[str, Any]] = field(default_factory=dict)
+    attrs: dict[str, Any] = field(default_factory=dict)
+    start_time: datetime | None = None
+    path: Path | None = None
+
+    @property
+    def time_h(self) -> np.ndarray:
+        """Time since start of run in hours."""
+        return self.timeseries["time"].to_numpy(dtype=np.float64) / 3600.0
+
+
+def _decode(value: Any) -> Any:
+    """An attribute value as plain Python: str, int, float, list, or dict for JSON objects."""
+    if isinstance(value, bytes | np.bytes_):
+        value = value.decode("utf-8")
+    if isinstance(value, str):
+        text = value.strip()
+        if text.startswith("{") and text.endswith("}"):
+            try:
+                return json.loads(text)
+            except json.JSONDecodeError:
+                return value
+        return value
+    if isinstance(value, np.ndarray):
+        if value.ndim == 0:
+            return _decode(value[()])
+        return [_decode(v) for v in value.tolist()]
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
+
+
+def _attrs(obj: h5py.HLObject) -> dict[str, Any]:
+    return {k: _decode(v) for k, v in obj.attrs.items() if k not in _SCALE_ATTRS}
+
+
+def parse_time_units(units: str) -> datetime | None:
+    """The reference time of CF units ``seconds since <ISO 8601>`` as an aware UTC datetime.
+
+    Returns None for plain ``s``. A reference without an offset is taken as UTC (CF default).
+    """
+    if not units.startswith(_SINCE):
+        return None
+    ref = units[len(_SINCE) :].strip()
+    dt = datetime.fromisoformat(ref.replace(" ", "T", 1) if "T" not in ref else ref)
+    return dt.replace(tzinfo=UTC) if dt.tzinfo is None else dt.astimezone(UTC)
+
+
+def _column(ds: h5py.Dataset) -> np.ndarray:
+    if h5py.check_string_dtype(ds.dtype) is not None:
+        return np.array(ds.asstr()[()], dtype=object)
+    return ds[()]
+
+
+def _table(g: h5py.Group) -> pd.DataFrame:
+    cols = {name: _column(ds) for name, ds in g.items() if isinstance(ds, h5py.Dataset)}
+    lengths = {len(v) for v in cols.values()}
+    if len(lengths) > 1:
+        raise ValueError(f"{g.file.filename}: table {g.name} has columns of unequal length")
+    df = pd.DataFrame(cols)
+    for name, values in cols.items():  # keep object dtype for strings (also when empty)
+        if values.dtype == object:
+            df[name] = pd.Series(values, dtype=object)
+    df.attrs["units"] = {n: str(g[n].attrs["units"]) for n in cols if "units" in g[n].attrs}
+    df.attrs["long_names"] = {
+        n: str(g[n].attrs["long_name"]) for n in cols if "long_name" in g[n].attrs
+    }
+    return df
+
+
+def read_result(path: str | Path) -> ResultFile:
+    """Read a dynoqc result file written by :func:`pipeline.report.hdf5.write_result`."""
+    path = Path(path)
+    with h5py.File(path, "r", locking="best-effort") as f:
+        if "timeseries" not in f or "time" not in f["timeseries"]:
+            raise ValueError(f"{path}: not a dynoqc result file (no /timeseries/time)")
+        ts = f["timeseries"]
+        names = ["time"] + [n for n in ts if n != "time" and isinstance(ts[n], h5py.Dataset)]
+        timeseries = pd.DataFrame({n: ts[n][()].astype(np.float64) for n in names})
+        series_attrs = {n: _attrs(ts[n]) for n in names}
+        units = {n: str(a.get("units", "")) for n, a in series_attrs.items()}
+        long_names = {n: str(a.get("long_name", "")) for n, a in series_attrs.items()}
+
+        if "flags" in f:
+            flags = _table(f["flags"])
+            for col in FLAG_COLUMNS:
+                if col not in flags:
+                    raise ValueError(f"{path}: /flags lacks the column {col!r}")
+        else:
+            flags = empty_flags()
+
+        tables: dict[str, pd.DataFrame] = {}
+        group_attrs: dict[str, dict[str, Any]] = {}
+
+        def visit(name: str, obj: h5py.HLObject) -> None:
+            if not isinstance(obj, h5py.Group) or name in ("timeseries", "flags"):
+                return
+            if any(isinstance(v, h5py.Dataset) for v in obj.values()):
+                tables[name] = _table(obj)
+            attrs = _attrs(obj)
+            if attrs:
+                group_attrs[name] = attrs
+
+        f.visititems(visit)
+        attrs = _attrs(f)
+
+    start_time = parse_time_units(units["time"])
+    return ResultFile(
+        timeseries=timeseries,
+        units=units,
+        long_names=long_names,
+        series_attrs=series_attrs,
+        flags=flags,
+        tables=tables,
+        group_attrs=group_attrs,
+        attrs=attrs,
+        start_time=start_time,
+        path=path,
+    )

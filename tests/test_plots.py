@@ -1,0 +1,177 @@
+"""Report figures: the envelope keeps extremes and gaps; the overview renders from a result."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import matplotlib.image as mpimg
+import numpy as np
+import pandas as pd
+import pytest
+
+from pipeline.data import ProcessResult, make_flags
+from pipeline.report.hdf5 import write_result
+from pipeline.report.plots import (
+    bin_mean,
+    envelope,
+    plot_lambda_overview,
+    robust_limits,
+    style_path,
+)
+from pipeline.result import read_result
+
+
+def test_envelope_keeps_single_sample_spike_and_bin_extremes() -> None:
+    rng = np.random.default_rng(0)
+    n, n_bins = 100_000, 500
+    t = np.arange(n, dtype=np.float64)
+    y = rng.normal(1.0, 0.01, n)
+    y[54_321] = 7.5  # one-sample spike, lost by y[::k] decimation
+    y[12_345] = -3.0
+    ex, ey = envelope(t, y, n_bins)
+    assert ex.shape == ey.shape == (2 * n_bins,)
+    assert ey.max() == 7.5 and ey.min() == -3.0
+    assert ex[np.argmax(ey)] == 54_321.0  # drawn at its own time
+    # every bin's min and max equal the raw data's (bins of 200 samples here)
+    per_bin = y.reshape(n_bins, -1)
+    np.testing.assert_array_equal(ey.reshape(n_bins, 2).min(axis=1), per_bin.min(axis=1))
+    np.testing.assert_array_equal(ey.reshape(n_bins, 2).max(axis=1), per_bin.max(axis=1))
+    assert np.all(np.diff(ex) >= 0)  # a polyline in time order
+
+
+def test_envelope_keeps_nan_gaps_and_time_gaps() -> None:
+    n, n_bins = 20_000, 100
+    t = np.arange(n, dtype=np.float64)
+    y = np.ones(n)
+    y[5_000:6_000] = np.nan  # 5 bins of NaN
+    y[9_000] = np.inf  # counts as missing, never drawn as inf
+    t2 = np.where(t < 15_000, t, t + 5_000)  # a hole in the time stamps
+    ex, ey = envelope(t2, y, n_bins)
+    assert not np.isinf(ey).any()
+    bins = ey.reshape(n_bins, 2)
+    centres = ex.reshape(n_bins, 2).mean(axis=1)
+    empty = np.isnan(bins).all(axis=1)
+    assert empty.sum() >= 4 + 19  # the NaN stretch and the time hole both break the line
+    assert empty[(centres > 5_100) & (centres < 5_900)].all()
+    assert empty[(centres > 15_100) & (centres < 19_900)].all()
+    assert not empty[centres < 4_900].any()
+
+
+def test_envelope_short_trace_is_returned_with_gap_breaks() -> None:
+    t = np.array([0.0, 1, 2, 3, 10, 11, 12])
+    y = np.array([1.0, 2, 3, 4, 5, 6, 7])
+    ex, ey = envelope(t, y, 100)
+    np.testing.assert_array_equal(ex[~np.isnan(ex)], t)
+    np.testing.assert_array_equal(ey[~np.isnan(ey)], y)
+    assert np.isnan(ey[4])  # break between 3 s and 10 s
+
+
+def test_envelope_rejects_bad_input() -> None:
+    with pytest.raises(ValueError, match="equal length"):
+        envelope(np.arange(3.0), np.arange(4.0), 10)
+    with pytest.raises(ValueError, match="n_bins"):
+        envelope(np.arange(3.0), np.arange(3.0), 0)
+
+
+def test_bin_mean_matches_numpy() -> None:
+    t = np.arange(1000, dtype=np.float64)
+    y = np.sin(t / 50.0)
+    y[100:200] = np.nan
+    centres, mean = bin_mean(t, y, 10)
+    assert np.isnan(mean[1])
+    np.testing.assert_allclose(mean[3], y[300:400].mean(), rtol=1e-12)
+    np.testing.assert_allclose(centres[0], 999 / 20, rtol=1e-12)
+
+
+def test_robust_limits_ignore_a_spike() -> None:
+    y = np.r_[np.linspace(0.95, 1.05, 10_000), 40.0]
+    lo, hi = robust_limits(y)
+    assert 0.93 < lo < 0.95 and 1.05 < hi < 1.07
+    flat_lo, flat_hi = robust_limits(np.ones(100))
+    assert flat_hi - flat_lo > 0.02  # a flat trace is not magnified into noise
+    assert robust_limits(np.array([np.nan])) == (0.9, 1.1)
+
+
+def test_style_file_is_packaged() -> None:
+    text = style_path().read_text()
+    assert "axes.prop_cycle" in text and "0072B2" in text
+
+
+def _night(tmp_path: Path, columns: tuple[str, ...], start: str | None) -> Path:
+    rng = np.random.default_rng(3)
+    t = np.arange(0, 4 * 3600, 0.5)
+    data = {"time": t}
+    for k, name in enumerate(columns):
+        data[name] = 1.0 + 0.01 * k + rng.normal(0, 0.003, t.size)
+    flags = make_flags(
+        [
+            {"start_s": 600, "end_s": 900, "check": "analyzer_not_sampling", "severity": "info"},
+            {"start_s": 5000, "end_s": 5600, "check": "data_gap", "severity": "warning"},
+            {
+                "start_s": 7000,
+                "end_s": 14_000,
+                "check": "drift",
+                "suspect": "o2",
+                "severity": "error",
+                "value": 3.0,
+            },
+            {
+                "start_s": 8000,
+                "end_s": 8100,
+                "check": "lambda_disagreement",
+                "suspect": "air_mass_flow|fuel_mass_flow",
+                "severity": "warning",
+                "value": 4.0,
+            },
+        ]
+    )
+    attrs = {
+        "run_name": "test night",
+        "source_file": "night.csv",
+        "source_sha256": "0" * 64,
+        "fuel_name": "diesel",
+        "config_file": "cell.toml",
+        "tool_version": "0.1.0",
+    }
+    if start:
+        attrs["start_time_utc"] = start
+    res = ProcessResult(series=pd.DataFrame(data), series_attrs={}, flags=flags, attrs=attrs)
+    return write_result(tmp_path / "night.h5", res)
+
+
+@pytest.mark.parametrize("start", ["2026-03-14T21:40:00Z", None])
+def test_overview_renders_from_read_back_result(tmp_path: Path, start: str | None) -> None:
+    cols = ("lambda_flow", "lambda_carbon", "lambda_oxygen", "lambda_sensor")
+    res = read_result(_night(tmp_path, cols, start))
+    out = plot_lambda_overview(res, tmp_path / "overview.png")
+    img = mpimg.imread(out)
+    assert img.shape[1] >= 1200
+    assert img.shape[:2] == (900, 1800)
+    # something other than white was drawn in the plot area
+    assert (img[200:700, 200:1600, :3] < 0.5).any()
+
+
+def test_overview_is_deterministic(tmp_path: Path) -> None:
+    res = read_result(_night(tmp_path, ("lambda_flow", "lambda_carbon"), None))
+    a = plot_lambda_overview(res, tmp_path / "a.png").read_bytes()
+    b = plot_lambda_overview(res, tmp_path / "b.png").read_bytes()
+    assert a == b
+
+
+def test_overview_skips_absent_series(tmp_path: Path) -> None:
+    res = read_result(_night(tmp_path, ("lambda_flow", "lambda_oxygen"), None))
+    assert "lambda_sensor" not in res.timeseries
+    out = plot_lambda_overview(res, tmp_path / "two.png")
+    assert mpimg.imread(out).shape[1] >= 1200
+
+
+def test_overview_without_any_estimate_or_flags(tmp_path: Path) -> None:
+    t = np.arange(0.0, 100.0)
+    res = ProcessResult(
+        series=pd.DataFrame({"time": t, "co2": np.full(t.size, 0.1)}),
+        series_attrs={},
+        flags=make_flags([]),
+    )
+    back = read_result(write_result(tmp_path / "r.h5", res))
+    out = plot_lambda_overview(back, tmp_path / "empty.png")
+    assert mpimg.imread(out).shape[1] >= 1200

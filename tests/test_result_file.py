@@ -1,0 +1,277 @@
+"""The HDF5 result file: contract layout, round trip through read_result, atomic writes."""
+
+from __future__ import annotations
+
+import json
+from datetime import UTC, datetime
+from pathlib import Path
+
+import h5py
+import numpy as np
+import pandas as pd
+import pytest
+
+from pipeline.data import FLAG_COLUMNS, ProcessResult, empty_flags, make_flags
+from pipeline.report import hdf5 as hdf5_mod
+from pipeline.report.hdf5 import write_result
+from pipeline.result import parse_time_units, read_result
+
+START = "2026-03-14T21:40:00Z"
+
+
+def _result(flags: pd.DataFrame | None = None, start: str | None = START) -> ProcessResult:
+    n = 1000
+    t = np.arange(n, dtype=np.float64) * 0.5
+    co2 = np.full(n, 0.12)
+    co2[10] = np.nan
+    co2[11] = np.inf
+    co2[12] = -np.inf
+    series = pd.DataFrame(
+        {
+            "time": t,
+            "lambda_flow": 1.0 + 0.01 * np.sin(t),
+            "co2": co2,
+            "exhaust_dew_point": np.linspace(40.0, 45.0, n),
+            "steady": (t > 100).astype(np.float64),
+        }
+    )
+    steady = pd.DataFrame(
+        {
+            "start_s": [10.0, 200.0],
+            "end_s": [90.0, 400.0],
+            "n_samples": np.array([161, 401], dtype=np.int64),
+            "label": ["idle", "2000 rpm / 80 N.m"],
+            "lambda_flow_mean": [1.01, np.inf],
+        }
+    )
+    steady.attrs["units"] = {"start_s": "s", "end_s": "s", "lambda_flow_mean": "1"}
+    if flags is None:
+        flags = make_flags(
+            [
+                {
+                    "start_s": 100.0,
+                    "end_s": 160.0,
+                    "check": "drift",
+                    "suspect": "co2",
+                    "severity": "warning",
+                    "value": 2.5,
+                    "message": "CO2 reads 2.5 % high – drift",
+                },
+                {
+                    "start_s": 300.0,
+                    "end_s": 330.0,
+                    "check": "data_gap",
+                    "severity": "info",
+                    "message": "no samples for 30 s",
+                },
+            ]
+        )
+    attrs = {
+        "tool_version": "0.1.0",
+        "created_utc": "2026-03-15T07:00:00Z",
+        "source_file": "cell3_night.csv",
+        "source_sha256": "ab" * 32,
+        "config_toml": '[run]\nname = "night"\n',
+        "fuel_name": "diesel",
+        "fuel_h_c": 1.85,
+        "fuel": {"name": "diesel", "h_c": 1.85},
+        "channels_used": ["co2", "o2"],
+    }
+    if start:
+        attrs["start_time_utc"] = start
+    return ProcessResult(
+        series=series,
+        series_attrs={
+            "co2": {"basis": "dry"},
+            "exhaust_dew_point": {"units": "degC", "long_name": "exhaust water dew point"},
+            "steady": {"units": "1", "long_name": "1 on a steady operating point"},
+        },
+        flags=flags,
+        tables={"steady_points": steady},
+        group_attrs={
+            "alignment": {"analyzer_delay_s": 8.5, "method": "cross-correlation", "quality": 0.93}
+        },
+        attrs=attrs,
+    )
+
+
+def test_contract_layout(tmp_path: Path) -> None:
+    res = _result()
+    out = write_result(tmp_path / "night.h5", res)
+    assert out == tmp_path / "night.h5"
+    with h5py.File(out, "r") as f:
+        assert f.attrs["Conventions"] == "CF-1.10"
+        assert f.attrs["source_sha256"] == "ab" * 32
+        assert json.loads(f.attrs["fuel"]) == {"name": "diesel", "h_c": 1.85}
+        assert f.attrs["config_toml"].startswith("[run]")
+        assert f.id.get_create_plist().get_version()[0] == 0  # superblock v0: old readers open it
+        ts = f["timeseries"]
+        assert set(ts) == set(res.series.columns)
+        tm = ts["time"]
+        assert tm.attrs["units"] == f"seconds since {START}"
+        assert tm.is_scale
+        for name, ds in ts.items():
+            assert ds.ndim == 1 and ds.shape == (len(res.series),)
+            assert ds.dtype == np.float64
+            assert ds.attrs["units"] and ds.attrs["long_name"], name
+            assert ds.compression == "gzip" and ds.compression_opts == 4 and ds.shuffle
+            assert ds.chunks == (len(res.series),)  # shorter than 64 k samples: one chunk
+            assert np.isnan(ds.fillvalue)
+            if name != "time":
+                assert ds.dims[0][0] == tm, name
+            assert not np.isinf(ds[()]).any()
+        assert ts["co2"].attrs["units"] == "mol/mol"  # from the glossary
+        assert ts["co2"].attrs["basis"] == "dry"  # given attribute kept
+        assert np.isnan(ts["co2"][10:13]).all()  # NaN, +inf, -inf all stored as NaN
+        assert ts["exhaust_dew_point"].attrs["units"] == "degC"
+
+        fl = f["flags"]
+        assert list(fl) == list(FLAG_COLUMNS)
+        assert {len(fl[c]) for c in fl} == {2}
+        for col in ("start_s", "end_s", "value"):
+            assert fl[col].dtype == np.float64
+        for col in ("check", "suspect", "severity", "message"):
+            assert h5py.check_string_dtype(fl[col].dtype).encoding == "utf-8"
+            assert h5py.check_string_dtype(fl[col].dtype).length is None  # variable length
+        assert fl["start_s"].attrs["units"] == "s"
+        assert fl["message"].asstr()[0].endswith("– drift")
+
+        sp = f["steady_points"]
+        assert list(sp) == ["start_s", "end_s", "n_samples", "label", "lambda_flow_mean"]
+        assert sp["n_samples"].dtype == np.int64
+        assert sp["start_s"].attrs["units"] == "s"
+        assert np.isnan(sp["lambda_flow_mean"][1])
+        assert f["alignment"].attrs["analyzer_delay_s"] == 8.5
+        assert f["alignment"].attrs["method"] == "cross-correlation"
+
+
+def test_time_units_plain_seconds_without_start(tmp_path: Path) -> None:
+    out = write_result(tmp_path / "r.h5", _result(start=None))
+    with h5py.File(out, "r") as f:
+        assert f["timeseries/time"].attrs["units"] == "s"
+    assert read_result(out).start_time is None
+
+
+def test_round_trip(tmp_path: Path) -> None:
+    res = _result()
+    back = read_result(write_result(tmp_path / "night.h5", res))
+
+    expected = res.series.copy()
+    expected = expected.replace([np.inf, -np.inf], np.nan)
+    pd.testing.assert_frame_equal(back.timeseries, expected)
+    assert list(back.timeseries.columns)[0] == "time"
+    assert back.units["lambda_flow"] == "1"
+    assert back.units["time"] == f"seconds since {START}"
+    assert back.long_names["co2"] == "CO2 mole fraction"
+    assert back.series_attrs["co2"]["basis"] == "dry"
+    assert "DIMENSION_LIST" not in back.series_attrs["co2"]
+    assert back.start_time == datetime(2026, 3, 14, 21, 40, tzinfo=UTC)
+
+    pd.testing.assert_frame_equal(back.flags, res.flags, check_dtype=True)
+    assert isinstance(back.flags["check"].iloc[0], str)
+
+    sp = back.tables["steady_points"]
+    exp_sp = res.tables["steady_points"].replace([np.inf], np.nan)
+    pd.testing.assert_frame_equal(sp, exp_sp, check_dtype=False)
+    assert sp["n_samples"].dtype == np.int64
+    assert sp.attrs["units"]["end_s"] == "s"
+
+    assert back.group_attrs == {"alignment": res.group_attrs["alignment"]}
+    for key, value in res.attrs.items():
+        assert back.attrs[key] == value, key
+    assert back.attrs["Conventions"] == "CF-1.10"
+
+
+def test_empty_flags_round_trip(tmp_path: Path) -> None:
+    out = write_result(tmp_path / "r.h5", _result(flags=empty_flags()))
+    with h5py.File(out, "r") as f:
+        assert list(f["flags"]) == list(FLAG_COLUMNS)
+        assert all(f["flags"][c].shape == (0,) for c in FLAG_COLUMNS)
+        assert h5py.check_string_dtype(f["flags/check"].dtype) is not None
+    back = read_result(out)
+    assert len(back.flags) == 0
+    assert list(back.flags.columns) == list(FLAG_COLUMNS)
+    assert back.flags["start_s"].dtype == np.float64
+    assert back.flags["check"].dtype == object
+
+
+def test_long_series_chunked_at_64k(tmp_path: Path) -> None:
+    n = 150_000
+    res = _result()
+    t = np.arange(n) * 0.1
+    res.series = pd.DataFrame({"time": t, "lambda_flow": np.ones(n)})
+    with h5py.File(write_result(tmp_path / "r.h5", res), "r") as f:
+        assert f["timeseries/lambda_flow"].chunks == (65536,)
+
+
+def test_missing_units_raise(tmp_path: Path) -> None:
+    res = _result()
+    res.series["mystery_signal"] = 1.0
+    with pytest.raises(ValueError, match="mystery_signal.*units"):
+        write_result(tmp_path / "r.h5", res)
+    res.series_attrs["mystery_signal"] = {"long_name": "a thing"}
+    with pytest.raises(ValueError, match="mystery_signal.*no units"):
+        write_result(tmp_path / "r.h5", res)
+    assert list(tmp_path.iterdir()) == []  # nothing left behind
+
+
+def test_missing_time_raises(tmp_path: Path) -> None:
+    res = _result()
+    res.series = res.series.drop(columns="time")
+    with pytest.raises(ValueError, match="'time'"):
+        write_result(tmp_path / "r.h5", res)
+
+
+@pytest.mark.parametrize("exc", [RuntimeError("disk full"), KeyboardInterrupt()])
+def test_failed_write_leaves_old_result_and_no_temp(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, exc: BaseException
+) -> None:
+    out = tmp_path / "night.h5"
+    write_result(out, _result())
+    before = out.read_bytes()
+
+    def boom(*args: object, **kwargs: object) -> None:
+        raise exc
+
+    monkeypatch.setattr(hdf5_mod, "_write_flags", boom)  # fails after /timeseries is written
+    with pytest.raises(type(exc)):
+        write_result(out, _result())
+    assert out.read_bytes() == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["night.h5"]
+
+
+def test_failed_first_write_creates_nothing(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    def boom(*args: object, **kwargs: object) -> None:
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(hdf5_mod.os, "replace", boom)
+    with pytest.raises(KeyboardInterrupt):
+        write_result(tmp_path / "night.h5", _result())
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_result_file_is_not_private(tmp_path: Path) -> None:
+    out = write_result(tmp_path / "night.h5", _result())
+    assert out.stat().st_mode & 0o044  # readable by group/others as the umask allows
+
+
+def test_parse_time_units() -> None:
+    assert parse_time_units("s") is None
+    assert parse_time_units("seconds since 2026-01-01T10:00:00Z") == datetime(
+        2026, 1, 1, 10, tzinfo=UTC
+    )
+    assert parse_time_units("seconds since 2026-01-01 10:00:00") == datetime(
+        2026, 1, 1, 10, tzinfo=UTC
+    )
+
+
+def test_start_time_as_aware_datetime_is_converted_to_utc(tmp_path: Path) -> None:
+    from datetime import timedelta, timezone
+
+    res = _result()
+    res.attrs["start_time_utc"] = datetime(2026, 3, 14, 22, 40, tzinfo=timezone(timedelta(hours=1)))
+    with h5py.File(write_result(tmp_path / "r.h5", res), "r") as f:
+        assert f["timeseries/time"].attrs["units"] == f"seconds since {START}"
+        assert f.attrs["start_time_utc"] == START
