@@ -14,14 +14,16 @@ from pathlib import Path
 from typing import Any
 
 from .errors import ConfigError
-from .fuels import Fuel, load_presets
+from .fuels import Fuel, blend_by_mass, load_presets
 from .quantities import INPUTS
 
 REQUIRED_CHANNELS = ("time", "fuel_mass_flow", "air_mass_flow", "co2", "o2")
 
 _TOP_KEYS = {"run", "fuel", "input", "channels", "sampling", "checks"}
 _RUN_KEYS = {"name", "description"}
-_FUEL_KEYS = {"preset", "h_c", "o_c", "s_c", "n_c", "lhv_MJ_per_kg", "density_kg_per_m3"}
+_FUEL_KEYS = {
+    "preset", "blend", "h_c", "o_c", "s_c", "n_c", "c", "lhv_MJ_per_kg", "density_kg_per_m3"
+}
 _INPUT_KEYS = {"delimiter", "decimal", "encoding", "units_row", "timezone"}
 _CHANNEL_KEYS = {"column", "value", "unit", "basis", "carbon_number", "format", "range"}
 _SAMPLING_KEYS = {
@@ -172,6 +174,27 @@ def _number(value: Any, where: str, path: Path) -> float:
 def _parse_fuel(table: dict[str, Any], path: Path) -> Fuel:
     _check_keys(table, _FUEL_KEYS, "[fuel]", path)
     presets = load_presets()
+    if "blend" in table:
+        blend = table["blend"]
+        others = set(table) - {"blend", "density_kg_per_m3"}
+        if not isinstance(blend, dict) or not blend or others:
+            raise ConfigError(
+                f"{path}: [fuel] blend must be an inline table of preset = mass share, e.g. "
+                "blend = { diesel_2 = 0.93, ethanol = 0.07 }, and stands alone in [fuel]."
+            )
+        parts = []
+        for name, share in blend.items():
+            if name not in presets:
+                raise ConfigError(
+                    f"{path}: unknown fuel preset '{name}' in [fuel] blend.{_hint(name, presets)}"
+                )
+            value = _number(share, f"[fuel] blend.{name}", path)
+            if value < 0:
+                raise ConfigError(f"{path}: [fuel] blend.{name} must not be negative.")
+            parts.append((presets[name], value))
+        if sum(v for _, v in parts) <= 0:
+            raise ConfigError(f"{path}: [fuel] blend shares must add up to more than zero.")
+        return blend_by_mass("blend", parts)
     if "preset" in table:
         name = table["preset"]
         if name not in presets:
@@ -199,7 +222,10 @@ def _parse_fuel(table: dict[str, Any], path: Path) -> Fuel:
             f"{path}: [fuel] needs either preset = \"...\" or the atomic ratio h_c "
             "(with optional o_c, s_c, n_c)."
         )
-    ratios = {k: _number(table.get(k, 0.0), f"[fuel].{k}", path) for k in ("h_c", "o_c", "s_c", "n_c")}
+    ratios = {
+        k: _number(table.get(k, 0.0), f"[fuel].{k}", path) for k in ("h_c", "o_c", "s_c", "n_c")
+    }
+    ratios["c"] = _number(table.get("c", 1.0), "[fuel].c", path)
     for k, v in ratios.items():
         if v < 0:
             raise ConfigError(f"{path}: [fuel].{k} must not be negative, got {v}.")
@@ -269,7 +295,9 @@ def parse_config(raw: dict[str, Any], path: Path) -> Config:
     if "decimal" in inp and inp["decimal"] not in (".", ","):
         raise ConfigError(f"{path}: [input] decimal must be \".\" or \",\".")
     if "delimiter" in inp and (not isinstance(inp["delimiter"], str) or len(inp["delimiter"]) != 1):
-        raise ConfigError(f"{path}: [input] delimiter must be one character, e.g. \",\" \";\" \"\\t\".")
+        raise ConfigError(
+            f"{path}: [input] delimiter must be one character, e.g. \",\" \";\" \"\\t\"."
+        )
     input_opts = InputOptions(**inp)
 
     channels_raw = raw.get("channels")

@@ -2,7 +2,8 @@
 
 A fuel is described per carbon atom as CH_alpha O_beta S_gamma N_delta (40 CFR 1065.655(d),
 1065.656(d) symbol list). Everything else (carbon mass fraction, stoichiometric oxygen and
-air demand) is derived from those ratios.
+air demand) is derived from those ratios. Fuels without carbon (hydrogen, ammonia;
+1065.656(e)) have ``c = 0`` and their ratios are then atoms per formula unit (H2: h_c = 2).
 """
 
 from __future__ import annotations
@@ -24,7 +25,10 @@ class Fuel:
     Attributes
     ----------
     name: preset name or ``"custom"``.
-    h_c, o_c, s_c, n_c: atomic H/C (alpha), O/C (beta), S/C (gamma), N/C (delta).
+    h_c, o_c, s_c, n_c: atomic H/C (alpha), O/C (beta), S/C (gamma), N/C (delta); for a fuel
+        without carbon (``c = 0``) the atoms of H, O, S, N per formula unit.
+    c: carbon atoms per formula unit: 1 for every carbon fuel (the per-carbon description of
+        1065.655), 0 for hydrogen and ammonia.
     lhv_MJ_per_kg: optional lower heating value, MJ/kg (informative only).
     density_kg_per_m3: optional liquid density, kg/m^3 (for volumetric fuel meters).
     source: where the composition comes from.
@@ -35,6 +39,7 @@ class Fuel:
     o_c: float = 0.0
     s_c: float = 0.0
     n_c: float = 0.0
+    c: float = 1.0
     lhv_MJ_per_kg: float | None = None
     density_kg_per_m3: float | None = None
     source: str = ""
@@ -42,14 +47,19 @@ class Fuel:
     extra: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
 
     @property
+    def has_carbon(self) -> bool:
+        """False for hydrogen and ammonia: no carbon balance is possible."""
+        return self.c > 0
+
+    @property
     def molar_mass_per_c(self) -> float:
-        """Mass of fuel per mole of fuel carbon, g/mol.
+        """Mass of fuel per mole of fuel carbon (per formula unit if c = 0), g/mol.
 
         D = M_C + alpha M_H + beta M_O + gamma M_S + delta M_N (REFERENCES 1.3, reproduces
         the 40 CFR 1065.656(d)(2) example).
         """
         return (
-            C.M_C
+            self.c * C.M_C
             + self.h_c * C.M_H
             + self.o_c * C.M_O
             + self.s_c * C.M_S
@@ -59,7 +69,7 @@ class Fuel:
     @property
     def w_c(self) -> float:
         """Carbon mass fraction w_C = M_C / D, g/g (40 CFR 1065.656(d))."""
-        return C.M_C / self.molar_mass_per_c
+        return self.c * C.M_C / self.molar_mass_per_c
 
     @property
     def w_h(self) -> float:
@@ -86,9 +96,10 @@ class Fuel:
         """Moles of O2 needed to burn one mole of fuel carbon completely: 1 + a/4 - b/2 + g.
 
         Complete combustion to CO2, H2O and SO2 (sulfur as SO2, fuel nitrogen to N2); the
-        same factor appears in Eq. 1065.655-7 and the Brettschneider denominator.
+        same factor appears in Eq. 1065.655-7 and the Brettschneider denominator. Per formula
+        unit for a fuel without carbon (H2: 0.5).
         """
-        return 1.0 + self.h_c / 4.0 - self.o_c / 2.0 + self.s_c
+        return self.c + self.h_c / 4.0 - self.o_c / 2.0 + self.s_c
 
     @property
     def afr_stoich(self) -> float:
@@ -107,6 +118,7 @@ class Fuel:
             "o_c": self.o_c,
             "s_c": self.s_c,
             "n_c": self.n_c,
+            "c": self.c,
             "w_c": self.w_c,
             "w_h": self.w_h,
             "w_o": self.w_o,
@@ -125,9 +137,23 @@ class Fuel:
 def fuel_from_mass_fractions(
     name: str, w_c: float, w_h: float, w_o: float = 0.0, w_s: float = 0.0, w_n: float = 0.0
 ) -> Fuel:
-    """Fuel from measured mass fractions: alpha = (M_C/M_H)(w_H/w_C), etc. (REFERENCES 1.3 [C])."""
-    if w_c <= 0:
-        raise ValueError(f"fuel {name!r}: carbon mass fraction must be positive, got {w_c}")
+    """Fuel from measured mass fractions: alpha = (M_C/M_H)(w_H/w_C), etc. (REFERENCES 1.3 [C]).
+
+    With w_C = 0 the fuel has no carbon and the ratios are atoms per formula unit, scaled to
+    one N atom when nitrogen is present (ammonia, NH3) and to two H atoms otherwise (H2).
+    """
+    if w_c < 0 or w_h < 0:
+        raise ValueError(f"fuel {name!r}: mass fractions must not be negative")
+    if w_c == 0:
+        # No carbon: atoms per formula unit, scaled to one N (ammonia-like) or two H.
+        per_g = {"h": w_h / C.M_H, "o": w_o / C.M_O, "s": w_s / C.M_S, "n": w_n / C.M_N}
+        unit = per_g["n"] if per_g["n"] > 0 else per_g["h"] / 2.0
+        if unit <= 0:
+            raise ValueError(f"fuel {name!r}: no carbon, hydrogen or nitrogen")
+        return Fuel(
+            name=name, c=0.0, h_c=per_g["h"] / unit, o_c=per_g["o"] / unit,
+            s_c=per_g["s"] / unit, n_c=per_g["n"] / unit, source="mass fractions",
+        )
     return Fuel(
         name=name,
         h_c=(C.M_C / C.M_H) * (w_h / w_c),
@@ -135,6 +161,31 @@ def fuel_from_mass_fractions(
         s_c=(C.M_C / C.M_S) * (w_s / w_c),
         n_c=(C.M_C / C.M_N) * (w_n / w_c),
         source="mass fractions",
+    )
+
+
+def blend_by_mass(name: str, parts: dict[Fuel, float] | list[tuple[Fuel, float]]) -> Fuel:
+    """A blend of fuels (or fluids) by mass share, 40 CFR 1065.656(d)(3).
+
+    The mass fractions of C, H, O, S, N are mixed by mass (w_X,mix = sum m_j w_Xj / sum m_j)
+    and the atomic ratios of the mixture follow from the mixed fractions (REFERENCES 1.3,
+    [V-ex]: reproduces the CFR diesel + NH3 example).
+    """
+    items = list(parts.items()) if isinstance(parts, dict) else list(parts)
+    total = sum(m for _, m in items)
+    if total <= 0 or any(m < 0 for _, m in items):
+        raise ValueError(f"blend {name!r}: mass shares must be >= 0 with a positive sum")
+
+    def mix(attr: str) -> float:
+        return sum(getattr(f, attr) * m for f, m in items) / total
+
+    fuel = fuel_from_mass_fractions(
+        name, mix("w_c"), mix("w_h"), mix("w_o"), mix("w_s"), mix("w_n")
+    )
+    desc = " + ".join(f"{m / total:.4g} {f.name}" for f, m in items)
+    return Fuel(
+        name=name, h_c=fuel.h_c, o_c=fuel.o_c, s_c=fuel.s_c, n_c=fuel.n_c, c=fuel.c,
+        source=f"blend by mass (40 CFR 1065.656(d)(3)): {desc}", description=f"blend: {desc}",
     )
 
 
@@ -150,6 +201,7 @@ def load_presets() -> dict[str, Fuel]:
             o_c=float(entry.get("o_c", 0.0)),
             s_c=float(entry.get("s_c", 0.0)),
             n_c=float(entry.get("n_c", 0.0)),
+            c=float(entry.get("c", 1.0)),
             lhv_MJ_per_kg=entry.get("lhv_MJ_per_kg"),
             density_kg_per_m3=entry.get("density_kg_per_m3"),
             source=str(entry.get("source", "")),

@@ -152,3 +152,24 @@ def test_lambda_from_flows_definition_and_guards():
     assert lam[0] == pytest.approx(290.1 / 10.0 / f.afr_stoich)
     assert f.afr_stoich == pytest.approx(14.50, abs=0.01)
     assert np.isnan(lam[1]) and np.isnan(lam[2])  # fuel cut and dropout: NaN, never inf
+
+
+def test_hydrogen_lambda_from_exhaust_o2_against_cantera():
+    # Hydrogen has no carbon: lambda comes from the O2 side alone. Reference: Cantera 3.x
+    # (gri30) equilibrium of H2 in CFR dry air at 1000 K (complete combustion), lambda =
+    # 1 / element-based equivalence ratio; dry O2 fed to our carbon-free oxygen balance.
+    from pipeline.balance.oxygen import lambda_oxygen_carbon_free
+
+    ct = pytest.importorskip("cantera")
+    gas = ct.Solution("gri30.yaml")
+    air = "O2:0.209445, CO2:0.000375, AR:0.00934, N2:0.78084"
+    h2 = load_presets()["hydrogen"]
+    for lam in (1.2, 2.0, 3.0):
+        gas.TP = 300.0, ct.one_atm
+        gas.set_equivalence_ratio(1.0 / lam, "H2", air)
+        gas.TP = 1000.0, ct.one_atm
+        gas.equilibrate("TP")
+        x = gas.mole_fraction_dict()
+        o2_dry = x["O2"] / (1 - x["H2O"])
+        ref = 1.0 / gas.equivalence_ratio("H2", air)
+        assert lambda_oxygen_carbon_free(h2, o2_dry) == pytest.approx(ref, rel=1e-3)

@@ -72,3 +72,26 @@ def test_stoichiometric_afr_against_cantera():
     for name, species in (("methane", "CH4"), ("propane", "C3H8")):
         ref = gas.stoich_air_fuel_ratio(species, air, basis="mole")
         assert presets[name].afr_stoich == pytest.approx(ref, rel=2e-4)
+
+
+def test_blend_by_mass_1065_656_d3_example():
+    # 40 CFR 1065.656(d)(3) example (REFERENCES 1.3, [V-ex]): diesel 0.5352 g/s
+    # (alpha 1.8, beta 0.05, gamma 0.0003, delta 0.0001; w_C 0.820628, w_H 0.123961) plus
+    # NH3 7.024 g/s (w_H 0.177553, w_N 0.822447) -> w_C 0.0581014, w_H 0.1737586.
+    from pipeline.fuels import blend_by_mass
+
+    diesel = Fuel("diesel", h_c=1.8, o_c=0.05, s_c=0.0003, n_c=0.0001)
+    nh3 = Fuel("ammonia", c=0.0, h_c=3.0, n_c=1.0)
+    assert nh3.w_h == pytest.approx(0.177553, abs=1e-6)
+    assert nh3.w_n == pytest.approx(0.822447, abs=1e-6)
+    mix = blend_by_mass("mix", [(diesel, 0.5352), (nh3, 7.024)])
+    assert mix.w_c == pytest.approx(0.0581014, abs=1e-7)
+    assert mix.w_h == pytest.approx(0.1737586, abs=1e-7)
+
+
+def test_hydrogen_preset_has_no_carbon():
+    # 40 CFR 1065.656(e): hydrogen C0H2O0S0N0. Stoichiometric ratio 34.3 (common practice,
+    # REFERENCES 5).
+    h2 = load_presets()["hydrogen"]
+    assert not h2.has_carbon and h2.w_c == 0.0
+    assert h2.afr_stoich == pytest.approx(34.30, abs=0.01)

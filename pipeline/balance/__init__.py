@@ -16,8 +16,9 @@ from .. import constants as C
 from ..config import Config
 from ..data import make_flags
 from ..errors import ConfigError
+from ..fuels import Fuel
 from ..intervals import mask_to_intervals
-from .chemical import chemical_balance
+from .chemical import ChemicalBalance, chemical_balance
 from .flows import lambda_from_flows
 from .humidity import (
     dewpoint_from_x_h2o,
@@ -26,19 +27,27 @@ from .humidity import (
     x_h2o_from_g_per_kg,
     x_h2o_from_rh,
 )
-from .oxygen import lambda_brettschneider
+from .oxygen import lambda_brettschneider, lambda_oxygen_carbon_free
 
 __all__ = ["BalanceResult", "compute_balance", "chemical_balance", "lambda_brettschneider"]
 
 
 @dataclass
 class BalanceResult:
-    """Derived series (same rows as the input frame), flags, notes and attributes."""
+    """Derived series (same rows as the input frame), flags, notes and attributes.
+
+    ``chem`` keeps the full chemical-balance solution (None for fuels without carbon) for the
+    emission calculations; ``x_h2o_dryer`` the water left in dry-basis samples; ``basis`` the
+    dry/wet basis of each analyzer (NOx split into NO/NO2 included).
+    """
 
     derived: pd.DataFrame
     flags: pd.DataFrame
     warnings: list[str] = field(default_factory=list)
     attrs: dict[str, Any] = field(default_factory=dict)
+    chem: ChemicalBalance | None = None
+    x_h2o_dryer: np.ndarray | None = None
+    basis: dict[str, str] = field(default_factory=dict)
 
 
 def _col(frame: pd.DataFrame, name: str) -> np.ndarray | None:
@@ -131,12 +140,14 @@ def compute_balance(frame: pd.DataFrame, config: Config) -> BalanceResult:
     else:
         x_h2o_dryer = np.zeros(n)
 
-    # Sampling state.
-    carbon = np.zeros(n)
-    for g in ("co2", "co", "thc"):
-        if gases[g] is not None:
-            carbon = carbon + np.nan_to_num(gases[g], nan=0.0)
-    not_sampling = carbon < s.not_sampling_carbon_fraction
+    # Sampling state: analyzer_mode, and for carbon fuels exhaust carbon near zero.
+    not_sampling = np.zeros(n, dtype=bool)
+    if fuel.has_carbon:
+        carbon = np.zeros(n)
+        for g in ("co2", "co", "thc"):
+            if gases[g] is not None:
+                carbon = carbon + np.nan_to_num(gases[g], nan=0.0)
+        not_sampling = carbon < s.not_sampling_carbon_fraction
     mode = _col(frame, "analyzer_mode")
     if mode is not None:
         not_sampling |= np.isfinite(mode) & (mode != 0)
@@ -145,46 +156,54 @@ def compute_balance(frame: pd.DataFrame, config: Config) -> BalanceResult:
     def masked(x: np.ndarray | None) -> np.ndarray | None:
         return None if x is None else np.where(sampling, x, np.nan)
 
-    bal = chemical_balance(
-        fuel,
-        masked(gases["co2"]),
-        masked(gases["co"]),
-        masked(gases["thc"]),
-        masked(gases["no"]),
-        masked(gases["no2"]),
-        masked(gases["h2"]),
-        x_h2o_int=x_h2o_int,
-        basis=basis,
-        x_h2o_dryer=x_h2o_dryer,
-        x_co2_int_dry=s.intake_co2_ppm * 1e-6,
-    )
-    lam_carbon = bal.lambda_
-    # Oxygen balance on dry readings: the O2 analyzer's own basis with the same water rules.
+    x_co2_int_dry = s.intake_co2_ppm * 1e-6
     o2 = masked(gases["o2"])
-    o2_water = (
-        bal.x_h2o_exh if basis.get("o2") == "wet" else np.minimum(x_h2o_dryer, bal.x_h2o_exh)
-    )
-    o2_dry = o2 / (1.0 - o2_water)
-    lam_oxygen = lambda_brettschneider(
-        fuel,
-        bal.dry["co2"],
-        o2_dry,
-        bal.dry["co"],
-        bal.dry["thc"],
-        bal.dry["no"],
-        intake_co2_dry=s.intake_co2_ppm * 1e-6,
-        h2_dry=bal.x_h2_dry,
-    )
-
-    def finite(x: np.ndarray) -> np.ndarray:
-        return np.where(np.isfinite(x) & (x > 0), x, np.nan)
-
-    lam_carbon, lam_oxygen = finite(lam_carbon), finite(lam_oxygen)
-    x_h2o_exh = np.where(np.isfinite(lam_carbon), bal.x_h2o_exh, np.nan)
+    chem = None
+    if fuel.has_carbon:
+        chem = chemical_balance(
+            fuel,
+            masked(gases["co2"]),
+            masked(gases["co"]),
+            masked(gases["thc"]),
+            masked(gases["no"]),
+            masked(gases["no2"]),
+            masked(gases["h2"]),
+            x_h2o_int=x_h2o_int,
+            basis=basis,
+            x_h2o_dryer=x_h2o_dryer,
+            x_co2_int_dry=x_co2_int_dry,
+        )
+        x_h2o_exh = chem.x_h2o_exh
+        lam_carbon = _positive(chem.lambda_)
+        # Oxygen balance on dry readings: the O2 analyzer's basis with the same water rules.
+        o2_dry = o2 / (1.0 - _analyzer_water(basis.get("o2"), x_h2o_dryer, x_h2o_exh))
+        lam_oxygen = _positive(
+            lambda_brettschneider(
+                fuel,
+                chem.dry["co2"],
+                o2_dry,
+                chem.dry["co"],
+                chem.dry["thc"],
+                chem.dry["no"],
+                intake_co2_dry=x_co2_int_dry,
+                h2_dry=chem.x_h2_dry,
+            )
+        )
+        x_h2o_exh = np.where(np.isfinite(lam_carbon), x_h2o_exh, np.nan)
+    else:
+        warnings.append(
+            f"Fuel '{fuel.name}' has no carbon: the carbon balance is undefined, so "
+            "lambda_carbon is NaN; lambda_oxygen comes from the exhaust O2 alone."
+        )
+        lam_carbon = np.full(n, np.nan)
+        lam_oxygen, x_h2o_exh = _carbon_free_oxygen_side(
+            fuel, o2, basis.get("o2"), x_h2o_dryer, x_h2o_int, x_co2_int_dry
+        )
     p_exh = _col(frame, "exhaust_pressure")
     dew = dewpoint_from_x_h2o(x_h2o_exh, p_exh if p_exh is not None else p_amb)
 
-    valid = np.isfinite(lam_flow) & np.isfinite(lam_carbon) & np.isfinite(lam_oxygen)
+    exhaust_ok = np.isfinite(lam_oxygen) & (np.isfinite(lam_carbon) | (not fuel.has_carbon))
+    valid = np.isfinite(lam_flow) & exhaust_ok
     derived = pd.DataFrame(
         {
             "lambda_flow": lam_flow,
@@ -223,7 +242,60 @@ def compute_balance(frame: pd.DataFrame, config: Config) -> BalanceResult:
         "dryer_water_fraction_mean": float(np.nanmean(x_h2o_dryer)) if n else 0.0,
         "intake_co2_dry_ppm": s.intake_co2_ppm,
         "nox_no2_fraction": s.nox_no2_fraction,
-        "chemical_balance_iterations": bal.iterations,
+        "chemical_balance_iterations": chem.iterations if chem is not None else 0,
         "water_gas_constant": C.K_WATER_GAS,
     }
-    return BalanceResult(derived=derived, flags=make_flags(rows), warnings=warnings, attrs=attrs)
+    return BalanceResult(
+        derived=derived, flags=make_flags(rows), warnings=warnings, attrs=attrs, chem=chem,
+        x_h2o_dryer=x_h2o_dryer, basis=basis,
+    )
+
+
+def _positive(x: np.ndarray) -> np.ndarray:
+    return np.where(np.isfinite(x) & (x > 0), x, np.nan)
+
+
+def _analyzer_water(
+    basis: str | None, x_h2o_dryer: np.ndarray, x_h2o_exh: np.ndarray
+) -> np.ndarray:
+    """Water in an analyzer's sample: the exhaust's (wet) or the dryer's, never more than the
+    exhaust holds (40 CFR 1065.659, REFERENCES 1.7)."""
+    return x_h2o_exh if basis == "wet" else np.minimum(x_h2o_dryer, x_h2o_exh)
+
+
+def _carbon_free_oxygen_side(
+    fuel: Fuel,
+    o2: np.ndarray | None,
+    o2_basis: str | None,
+    x_h2o_dryer: np.ndarray,
+    x_h2o_int: np.ndarray,
+    x_co2_int_dry: float,
+) -> tuple[np.ndarray, np.ndarray]:
+    """lambda_oxygen and exhaust water for a fuel without carbon (hydrogen, ammonia).
+
+    Water per formula unit: h/2 from the fuel plus the intake air's water; dry gas: the dry
+    air less the O2 consumed plus the fuel's N2 (the bookkeeping of
+    :func:`.oxygen.lambda_oxygen_carbon_free`). Solved with the O2 reading's basis by a few
+    fixed-point passes (the water changes lambda only through the dry conversion).
+    """
+    n = x_h2o_int.size
+    if o2 is None:
+        return np.full(n, np.nan), np.full(n, np.nan)
+    s_o2 = fuel.o2_stoich_per_c
+    x_a = C.X_O2_PLUS_CO2_AIR_DRY - x_co2_int_dry
+    r = x_h2o_int / (1.0 - x_h2o_int)
+    x_w = np.zeros(n)
+    lam = np.full(n, np.nan)
+    for _ in range(30):
+        lam = lambda_oxygen_carbon_free(
+            fuel, o2 / (1.0 - _analyzer_water(o2_basis, x_h2o_dryer, x_w)),
+            intake_co2_dry=x_co2_int_dry,
+        )
+        air = lam * s_o2 / x_a
+        water = fuel.h_c / 2.0 + air * r
+        new = water / (air - s_o2 + fuel.n_c / 2.0 + water)
+        if np.nanmax(np.abs(new - x_w), initial=0.0) < 1e-12:
+            x_w = new
+            break
+        x_w = new
+    return lam, x_w

@@ -125,7 +125,8 @@ def chemical_balance(
     x_int_exhdry = np.zeros(n)
     dry: dict[str, Array] = {}
     it = 0
-    for it in range(1, MAX_ITERATIONS + 1):
+    while it < MAX_ITERATIONS:
+        it += 1
         # (14-18) dry conversion with the water at each analyzer.
         water_dry_analyzer = np.minimum(x_h2o_dryer, x_h2o_exh)
         for name, x in meas.items():

@@ -64,3 +64,26 @@ def lambda_brettschneider(
         den = (1 + h / 4 - o / 2) * (co2 + co + hc)
         lam = num / den
     return np.where(np.isfinite(lam) & (den > 0), lam, np.nan)
+
+
+def lambda_oxygen_carbon_free(
+    fuel: Fuel, o2_dry: ArrayLike, *, intake_co2_dry: float = C.X_CO2_AIR_DRY
+) -> NDArray[np.float64]:
+    """Excess-air ratio of a fuel without carbon (hydrogen, ammonia) from dry exhaust O2.
+
+    Our derivation [D], by the same oxygen bookkeeping as Brettschneider's: per formula unit
+    the fuel needs s = h/4 - o/2 + s_S mol O2 and releases n/2 mol N2; with dry air of O2
+    fraction x_a = 0.209820 - x_CO2 (REFERENCES 1.2) supplied at lambda s / x_a mol, the dry
+    exhaust holds y = (lambda - 1) s / (lambda s / x_a - s + n/2) of O2, hence::
+
+        lambda = (s - y (s - n/2)) / (s (1 - y / x_a))
+
+    (pure H2: lambda = (1 - y) / (1 - y / x_a)). Complete combustion assumed (no H2 slip,
+    no NH3 slip, NOx neglected).
+    """
+    y = np.asarray(o2_dry, dtype=float)
+    s_o2 = fuel.o2_stoich_per_c
+    x_a = C.X_O2_PLUS_CO2_AIR_DRY - intake_co2_dry
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lam = (s_o2 - y * (s_o2 - fuel.n_c / 2.0)) / (s_o2 * (1.0 - y / x_a))
+    return np.where(np.isfinite(lam) & (lam > 0) & (y >= 0) & (y < x_a), lam, np.nan)
