@@ -50,6 +50,7 @@ _INPUTS = [
 #: Canonical input quantities, keyed by name.
 INPUTS: dict[str, Quantity] = {q.name: q for q in _INPUTS}
 
+# fmt: off
 _DERIVED = [
     Quantity("lambda_flow", "1", "lambda from measured air and fuel mass flows", "derived"),
     Quantity("lambda_carbon", "1", "lambda from exhaust carbon balance (40 CFR 1065.655)", "derived"),
@@ -59,9 +60,26 @@ _DERIVED = [
     Quantity("exhaust_dewpoint", "degC", "dew point of the exhaust at exhaust pressure", "derived"),
     Quantity("air_dry_mass_flow", "kg/h", "intake dry-air mass flow", "derived"),
     Quantity("afr_flow", "1", "measured dry-air/fuel mass ratio", "derived"),
+    Quantity("exhaust_molar_flow", "mol/s", "raw exhaust molar flow from intake air (40 CFR 1065.655(f))", "derived"),
+    Quantity("exhaust_molar_flow_fuel", "mol/s", "raw exhaust molar flow from fuel flow (cross-check)", "derived"),
+    Quantity("exhaust_mass_flow", "kg/h", "raw exhaust mass flow (intake air + fuel)", "derived"),
+    Quantity("co2_wet", "mol/mol", "CO2 mole fraction, wet exhaust basis", "derived"),
+    Quantity("co_wet", "mol/mol", "CO mole fraction, wet exhaust basis", "derived"),
+    Quantity("o2_wet", "mol/mol", "O2 mole fraction, wet exhaust basis", "derived"),
+    Quantity("nox_wet", "mol/mol", "NOx mole fraction, wet exhaust basis", "derived"),
+    Quantity("thc_wet", "mol/mol", "THC mole fraction (C1), wet exhaust basis", "derived"),
+    Quantity("co2_mass_flow", "g/h", "CO2 mass emission rate", "derived"),
+    Quantity("co_mass_flow", "g/h", "CO mass emission rate", "derived"),
+    Quantity("nox_mass_flow", "g/h", "NOx mass emission rate, as NO2", "derived"),
+    Quantity("thc_mass_flow", "g/h", "THC mass emission rate, C1 basis with the fuel H/C", "derived"),
+    Quantity("combustion_water_per_kg_fuel", "kg/kg", "water formed per kg of fuel burned", "derived"),
+    Quantity("exhaust_water_per_kg_fuel", "kg/kg", "exhaust water (incl. intake humidity) per kg of fuel", "derived"),
+    Quantity("co2_per_kg_fuel", "kg/kg", "CO2 formed per kg of fuel burned", "derived"),
+    Quantity("brake_power", "kW", "brake power from speed and torque", "derived"),
     Quantity("sampling", "1", "1 where the analyzers sample exhaust, 0 where not", "derived"),
     Quantity("valid", "1", "1 where all three lambda estimates are defined", "derived"),
 ]
+# fmt: on
 
 #: Derived series written by the balance stage, keyed by name.
 DERIVED: dict[str, Quantity] = {q.name: q for q in _DERIVED}

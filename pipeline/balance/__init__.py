@@ -19,6 +19,16 @@ from ..errors import ConfigError
 from ..fuels import Fuel
 from ..intervals import mask_to_intervals
 from .chemical import ChemicalBalance, chemical_balance
+from .emissions import (
+    KG_H_TO_G_S,
+    brake_power_kw,
+    emission_rates,
+    exhaust_molar_flow_from_fuel,
+    exhaust_molar_flow_from_intake,
+    intake_molar_flow,
+    water_and_co2_per_kg_fuel,
+    wet_fractions,
+)
 from .flows import lambda_from_flows
 from .humidity import (
     dewpoint_from_x_h2o,
@@ -217,6 +227,8 @@ def compute_balance(frame: pd.DataFrame, config: Config) -> BalanceResult:
             "valid": valid.astype(float),
         }
     )
+    extra = _derived_results(frame, config, chem, x_h2o_int, x_h2o_exh, x_h2o_dryer, basis)
+    derived = pd.concat([derived, pd.DataFrame(extra)], axis=1)
 
     fuel_on = np.nan_to_num(fuel_flow, nan=0.0) > 0
     rows = []
@@ -249,6 +261,72 @@ def compute_balance(frame: pd.DataFrame, config: Config) -> BalanceResult:
         derived=derived, flags=make_flags(rows), warnings=warnings, attrs=attrs, chem=chem,
         x_h2o_dryer=x_h2o_dryer, basis=basis,
     )
+
+
+def _derived_results(
+    frame: pd.DataFrame,
+    config: Config,
+    chem: ChemicalBalance | None,
+    x_h2o_int: np.ndarray,
+    x_h2o_exh: np.ndarray,
+    x_h2o_dryer: np.ndarray,
+    basis: dict[str, str],
+) -> dict[str, np.ndarray]:
+    """Exhaust flow, wet concentrations, emission rates, water and CO2 per kg fuel, power.
+
+    Carbon fuels: exhaust flow from the intake air through the chemical balance
+    (1065.655(f)) and, as a cross-check, from the fuel flow. Fuels without carbon: complete
+    combustion adds h/2 + n/2 - s mol per formula unit of fuel to the intake flow (our
+    bookkeeping [D]); only NOx is then computed.
+    """
+    fuel = config.fuel
+    air = frame["air_mass_flow"].to_numpy(float)
+    fuel_flow = frame["fuel_mass_flow"].to_numpy(float)
+    n_int = intake_molar_flow(air, x_h2o_int, basis=config.channels["air_mass_flow"].basis)
+    out: dict[str, np.ndarray] = {}
+    if chem is not None:
+        ok = np.isfinite(chem.lambda_) & (chem.lambda_ > 0)
+        wet = {k: np.where(ok, v, np.nan) for k, v in wet_fractions(chem).items()}
+        n_exh = np.where(ok, exhaust_molar_flow_from_intake(n_int, chem), np.nan)
+        n_exh_fuel = np.where(ok, exhaust_molar_flow_from_fuel(fuel_flow, fuel, chem), np.nan)
+        out["exhaust_molar_flow"] = n_exh
+        out["exhaust_molar_flow_fuel"] = n_exh_fuel
+        for g in ("co2", "co", "o2", "nox", "thc"):
+            if g == "o2":
+                if "o2" in frame:
+                    o2 = frame["o2"].to_numpy(float)
+                    w = _analyzer_water(basis.get("o2"), x_h2o_dryer, chem.x_h2o_exh)
+                    out["o2_wet"] = np.where(ok, o2 / (1 - w) * (1 - chem.x_h2o_exh), np.nan)
+                continue
+            out[f"{g}_wet"] = wet[g]
+        rates = emission_rates(wet, n_exh, fuel)
+        if "nox" not in frame and "no" not in frame and "no2" not in frame:
+            rates.pop("nox_mass_flow")
+            out.pop("nox_wet")
+        if "thc" not in frame:
+            rates.pop("thc_mass_flow")
+        out.update(rates)
+        out.update(
+            {k: np.where(ok, v, np.nan) for k, v in water_and_co2_per_kg_fuel(chem, fuel).items()}
+        )
+    else:
+        n_fuel = fuel_flow * KG_H_TO_G_S / fuel.molar_mass_per_c
+        n_exh = n_int + n_fuel * (fuel.h_c / 2 + fuel.n_c / 2 - fuel.o2_stoich_per_c)
+        n_exh = np.where(np.isfinite(x_h2o_exh), n_exh, np.nan)
+        out["exhaust_molar_flow"] = n_exh
+        nox = frame["nox"].to_numpy(float) if "nox" in frame else None
+        if nox is not None:
+            w = _analyzer_water(basis.get("nox"), x_h2o_dryer, x_h2o_exh)
+            out["nox_wet"] = nox / (1 - w) * (1 - x_h2o_exh)
+            out["nox_mass_flow"] = C.M_NO2 * out["nox_wet"] * n_exh * 3600.0
+    # Mass balance: everything that goes in comes out (wet intake air plus fuel).
+    air_wet = n_int * ((1.0 - x_h2o_int) * C.M_AIR + x_h2o_int * C.M_H2O) / KG_H_TO_G_S
+    out["exhaust_mass_flow"] = np.where(
+        np.isfinite(out["exhaust_molar_flow"]), air_wet + fuel_flow, np.nan
+    )
+    if "speed" in frame and "torque" in frame:
+        out["brake_power"] = brake_power_kw(frame["speed"], frame["torque"])
+    return out
 
 
 def _positive(x: np.ndarray) -> np.ndarray:
