@@ -56,7 +56,8 @@ class RunMeta:
     run (UTC) when the log gives one; rows_read: data rows in the file; rows_dropped: rows
     removed (each counted with its reason in ``warnings``); units_in: unit string used per
     quantity; columns_in: logger column per quantity; bad_cells: non-numeric cells turned into
-    NaN, per quantity; warnings: plain-sentence notes for the console and the result file.
+    NaN, per quantity; missing_cells: empty cells (or missing markers) per quantity;
+    warnings: plain-sentence notes for the console and the result file.
     """
 
     source: Path
@@ -67,6 +68,7 @@ class RunMeta:
     units_in: dict[str, str] = field(default_factory=dict)
     columns_in: dict[str, str] = field(default_factory=dict)
     bad_cells: dict[str, int] = field(default_factory=dict)
+    missing_cells: dict[str, int] = field(default_factory=dict)
     metadata: dict[str, str] = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
 

@@ -439,4 +439,5 @@ def test_trailing_delimiters_quoted_names_and_cut_last_line(tmp_path: Path) -> N
     np.testing.assert_allclose(run.frame["time"], [0, 1, 2, 3])
     np.testing.assert_allclose(run.frame["air_mass_flow"], [2, 2, 2, 2])
     assert np.isnan(run.frame["co2"].iloc[-1]) and run.meta.bad_cells == {}
-    assert any("'co2' (co2): 1 empty" in w for w in run.meta.warnings)
+    assert run.meta.missing_cells == {"co2": 1, "o2": 1}  # the cut last line
+    assert any("1 empty" in w and "'co2'" in w for w in run.meta.warnings)

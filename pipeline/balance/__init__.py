@@ -153,11 +153,13 @@ def compute_balance(frame: pd.DataFrame, config: Config) -> BalanceResult:
     # Sampling state: analyzer_mode, and for carbon fuels exhaust carbon near zero.
     not_sampling = np.zeros(n, dtype=bool)
     if fuel.has_carbon:
-        carbon = np.zeros(n)
-        for g in ("co2", "co", "thc"):
+        # CO and THC may be missing (NaN counts as 0 there); a missing CO2 is a data gap,
+        # not "not sampling".
+        carbon = np.asarray(gases["co2"], dtype=float).copy()
+        for g in ("co", "thc"):
             if gases[g] is not None:
                 carbon = carbon + np.nan_to_num(gases[g], nan=0.0)
-        not_sampling = carbon < s.not_sampling_carbon_fraction
+        not_sampling = np.isfinite(carbon) & (carbon < s.not_sampling_carbon_fraction)
     mode = _col(frame, "analyzer_mode")
     if mode is not None:
         not_sampling |= np.isfinite(mode) & (mode != 0)

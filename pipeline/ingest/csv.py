@@ -339,6 +339,7 @@ def read_csv_run(path: Path, config: Config) -> RunData:
         if p == iso_pos:
             continue
         _count_cells(meta, q, layout.names[p], cols[p])
+    _report_missing(meta)
 
     # Time in seconds (before the policy).
     tname = layout.names[tpos]
@@ -432,9 +433,19 @@ def _count_cells(meta: RunMeta, q: str, name: str, c: _Column) -> None:
             f"e.g. '{c.bad_example}'."
         )
     if c.n_missing:
-        meta.warnings.append(
-            f"Column '{name}' ({q}): {c.n_missing} empty or missing-marker cell(s)."
-        )
+        meta.missing_cells[q] = c.n_missing
+
+
+def _report_missing(meta: RunMeta) -> None:
+    """One sentence per distinct count of empty cells, so a logger dropout that empties every
+    column reads as one note, not one per column."""
+    by_count: dict[int, list[str]] = {}
+    for q, count in meta.missing_cells.items():
+        by_count.setdefault(count, []).append(f"'{meta.columns_in.get(q, q)}'")
+    for count, names in sorted(by_count.items(), reverse=True):
+        where = f"column {names[0]}" if len(names) == 1 else f"each of {len(names)} columns"
+        detail = "" if len(names) == 1 else f" ({', '.join(names)})"
+        meta.warnings.append(f"{count} empty or missing-marker cell(s) in {where}{detail}.")
 
 
 def _no_numbers(layout: Layout, ch: Channel, examples: list[str], wanted: str) -> None:

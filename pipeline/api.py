@@ -1,0 +1,168 @@
+"""The driver: one function per use, whose body is the list of stages.
+
+- :func:`process_run` returns a :class:`~pipeline.data.ProcessResult` without writing files
+  (for notebooks and tests).
+- :func:`process_to_files` is what ``dynoqc process`` does for one night: the result file
+  ``OUT/<run stem>.h5`` and the PNG figures beside it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from . import __version__
+from .balance import compute_balance
+from .checks import run_checks
+from .checks.alignment import align_analyzers
+from .config import Config, load_config
+from .data import FLAG_COLUMNS, ProcessResult, RunData, make_flags
+from .ingest import read_run
+from .intervals import gap_flags
+from .quantities import DERIVED, GASES, INPUTS
+
+
+def run_stem(path: Path) -> str:
+    """The run's file name without its data suffixes (``night.csv.gz`` -> ``night``)."""
+    name = path.name
+    for suffix in (".gz", ".csv", ".tsv", ".txt", ".parquet", ".mf4", ".mdf"):
+        if name.lower().endswith(suffix):
+            name = name[: -len(suffix)]
+    return name or path.stem
+
+
+def _series_attrs(config: Config, run: RunData) -> dict[str, dict[str, Any]]:
+    attrs: dict[str, dict[str, Any]] = {}
+    for name in run.frame.columns:
+        q = INPUTS[name]
+        a: dict[str, Any] = {"units": q.unit, "long_name": q.long_name}
+        ch = config.channels.get(name)
+        if ch is not None:
+            if ch.basis:
+                a["basis"] = ch.basis
+            if ch.column is not None:
+                a["source_column"] = run.meta.columns_in.get(name, ch.column)
+            else:
+                a["source_value"] = float(ch.value) if ch.value is not None else np.nan
+            a["source_unit"] = run.meta.units_in.get(name, ch.unit)
+            if name == "thc":
+                a["source_carbon_number"] = ch.carbon_number
+        if name in GASES:
+            a["time_aligned"] = 1
+        attrs[name] = a
+    for name, q in DERIVED.items():
+        attrs[name] = {"units": q.unit, "long_name": q.long_name}
+    return attrs
+
+
+def _sorted_flags(parts: list[pd.DataFrame]) -> pd.DataFrame:
+    parts = [p for p in parts if len(p)]
+    if not parts:
+        return make_flags([])
+    flags = pd.concat(parts, ignore_index=True)[list(FLAG_COLUMNS)]
+    return flags.sort_values(["start_s", "check"], kind="stable").reset_index(drop=True)
+
+
+def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessResult:
+    """Process one logged night: ingest -> align -> balance -> checks. No files are written."""
+    run_path = Path(run_path)
+    cfg = config if isinstance(config, Config) else load_config(config)
+
+    run = read_run(run_path, cfg)  # ingest
+    gas_columns = [g for g in GASES if g in run.frame]
+    settings = dict(cfg.checks)
+    frame, alignment = align_analyzers(
+        run.frame, gas_columns, settings, cfg.sampling.analyzer_delay_s
+    )
+    bal = compute_balance(frame, cfg)  # balance
+    checked = run_checks(  # checks
+        frame,
+        bal.derived,
+        {**settings, "ranges": {n: c.range for n, c in cfg.channels.items() if c.range}},
+        has_sensor="lambda_sensor" in frame,
+    )
+
+    # Gaps are found in the data as logged (before the analyzer shift), so a dropout of the
+    # whole logger is one flag and the shifted tail is not mistaken for one.
+    logged = run.frame
+    essential = [c for c in ("fuel_mass_flow", "air_mass_flow", *gas_columns) if c in logged]
+    gaps = make_flags(
+        gap_flags(logged["time"].to_numpy(), {c: logged[c].to_numpy() for c in essential})
+    )
+    series = pd.concat(
+        [frame.reset_index(drop=True), bal.derived, pd.DataFrame(checked.series)], axis=1
+    )
+    series_attrs = _series_attrs(cfg, run)
+    series_attrs.update(checked.series_attrs)
+
+    meta = run.meta
+    attrs: dict[str, Any] = {
+        "title": f"dynoqc result: {cfg.run_name}",
+        "tool_name": "dynoqc",
+        "tool_version": __version__,
+        "created_utc": datetime.now(UTC).isoformat(timespec="seconds").replace("+00:00", "Z"),
+        "source_file": meta.source.name,
+        "source_sha256": meta.sha256,
+        "config_file": cfg.path.name,
+        "config_toml": cfg.to_toml(),
+        "run_name": cfg.run_name,
+        "run_description": cfg.description,
+        "fuel": cfg.fuel.properties(),
+        "fuel_name": cfg.fuel.name,
+        "rows_read": meta.rows_read,
+        "rows_dropped": meta.rows_dropped,
+        "bad_cells": dict(meta.bad_cells),
+        "warnings": list(meta.warnings + bal.warnings),
+        "input_metadata": dict(meta.metadata),
+        "balance": dict(bal.attrs),
+        "checks_settings": dict(checked.attrs),
+    }
+    if meta.start_time is not None:
+        attrs["start_time_utc"] = (
+            meta.start_time.astimezone(UTC).isoformat().replace("+00:00", "Z")
+        )
+    return ProcessResult(
+        series=series,
+        series_attrs=series_attrs,
+        flags=_sorted_flags([bal.flags, gaps, checked.flags]),
+        tables=dict(checked.tables),
+        group_attrs={"alignment": alignment},
+        attrs=attrs,
+        summary=list(checked.summary) if hasattr(checked, "summary") else [],
+    )
+
+
+@dataclass
+class NightOutcome:
+    """What ``dynoqc process`` reports for one night."""
+
+    run: Path
+    result_file: Path
+    figures: list[Path] = field(default_factory=list)
+    result: ProcessResult | None = None
+
+
+def process_to_files(
+    run_path: str | Path, config: str | Path | Config, out_dir: str | Path, *, plots: bool = True
+) -> NightOutcome:
+    """Process one night and write ``OUT/<run stem>.h5`` (atomically) and its figures."""
+    from .report.hdf5 import write_result
+
+    run_path = Path(run_path)
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    result = process_run(run_path, config)
+    h5 = write_result(out_dir / f"{run_stem(run_path)}.h5", result)
+    figures: list[Path] = []
+    if plots:
+        from .report.plots import plot_lambda_overview
+        from .result import read_result
+
+        res = read_result(h5)  # figures are rebuilt from the result file alone
+        figures.append(plot_lambda_overview(res, out_dir / f"{run_stem(run_path)}_lambda.png"))
+    return NightOutcome(run=run_path, result_file=h5, figures=figures, result=result)

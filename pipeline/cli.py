@@ -1,0 +1,134 @@
+"""Command line: ``dynoqc process | inspect | fuels``.
+
+Exit codes (DESIGN.md contract): 0 processed (flags or not); 1 unexpected internal fault;
+2 bad usage or config; 3 unusable input data. Messages go to stderr; the result paths and
+the summary go to stdout. Heavy libraries are imported inside the commands so ``--help`` is
+instant.
+"""
+
+from __future__ import annotations
+
+import sys
+import traceback
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import click
+
+from . import __version__
+from .errors import DynoqcError
+
+EXIT_OK, EXIT_INTERNAL, EXIT_CONFIG, EXIT_DATA = 0, 1, 2, 3
+
+
+def _fail(message: str, code: int) -> None:
+    click.echo(f"dynoqc: {message}", err=True)
+    sys.exit(code)
+
+
+def _guarded(debug: bool, fn: Callable[[], Any]) -> Any:
+    """Run ``fn``; turn known errors into a message and exit code, no traceback unless debug."""
+    try:
+        return fn()
+    except DynoqcError as exc:
+        if debug:
+            traceback.print_exc()
+        _fail(str(exc), exc.exit_code)
+    except KeyboardInterrupt:
+        _fail("interrupted; no partial result was left behind.", 130)
+    except Exception as exc:  # an unexpected fault: say so plainly
+        if debug:
+            traceback.print_exc()
+        _fail(
+            f"internal error ({type(exc).__name__}: {exc}). Run again with --debug for the "
+            "traceback and please report it.",
+            EXIT_INTERNAL,
+        )
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="dynoqc")
+def main() -> None:
+    """dynoqc: check an overnight engine test-cell log and write HDF5 + PNG results."""
+
+
+@main.command()
+@click.argument("runs", nargs=-1, required=True, type=click.Path(path_type=Path))
+@click.option(
+    "--config", "-c", "config_path", required=True, type=click.Path(path_type=Path),
+    help="Cell config (TOML) mapping the log's columns to dynoqc quantities.",
+)
+@click.option(
+    "--out", "-o", "out_dir", default=Path("out"), show_default=True,
+    type=click.Path(file_okay=False, path_type=Path), help="Folder for results.",
+)
+@click.option("--no-plots", is_flag=True, help="Write the result file only, no figures.")
+@click.option("--debug", is_flag=True, help="Show tracebacks of errors.")
+def process(runs: tuple[Path, ...], config_path: Path, out_dir: Path, no_plots: bool,
+            debug: bool) -> None:
+    """Process logged night(s) RUNS into OUT/<run>.h5 plus figures."""
+    from .api import process_to_files
+    from .config import load_config
+    from .summary import night_summary
+
+    config = _guarded(debug, lambda: load_config(config_path))
+    worst = EXIT_OK
+    for run in runs:
+        if not run.is_file():
+            click.echo(f"dynoqc: {run}: no such file.", err=True)
+            worst = max(worst, EXIT_DATA)
+            continue
+        try:
+            outcome = process_to_files(run, config, out_dir, plots=not no_plots)
+        except DynoqcError as exc:
+            if debug:
+                traceback.print_exc()
+            click.echo(f"dynoqc: {exc}", err=True)
+            worst = max(worst, exc.exit_code)
+            continue
+        except KeyboardInterrupt:
+            _fail("interrupted; no partial result was left behind.", 130)
+        except Exception as exc:
+            if debug:
+                traceback.print_exc()
+            click.echo(
+                f"dynoqc: {run}: internal error ({type(exc).__name__}: {exc}). Run again "
+                "with --debug for the traceback and please report it.", err=True,
+            )
+            worst = max(worst, EXIT_INTERNAL)
+            continue
+        for line in night_summary(outcome):
+            click.echo(line)
+    sys.exit(worst)
+
+
+@main.command()
+def fuels() -> None:
+    """List the fuel presets and their derived properties."""
+    from .fuels import load_presets
+
+    click.echo(f"{'preset':<12} {'H/C':>6} {'O/C':>6} {'w_C':>7} {'AFR_st':>7}  description")
+    for name, f in load_presets().items():
+        click.echo(
+            f"{name:<12} {f.h_c:6.3f} {f.o_c:6.3f} {f.w_c:7.4f} {f.afr_stoich:7.3f}  "
+            f"{f.description}"
+        )
+    click.echo("AFR_st: kg dry air per kg fuel, computed from the composition (CFR dry air).")
+
+
+@main.command()
+@click.argument("run", type=click.Path(path_type=Path))
+@click.option("--config", "-c", "config_path", type=click.Path(path_type=Path), default=None,
+              help="Cell config to show the mapping of.")
+@click.option("--debug", is_flag=True, help="Show tracebacks of errors.")
+def inspect(run: Path, config_path: Path | None, debug: bool) -> None:
+    """Show the columns, units and value ranges of RUN and how a config maps them."""
+    from .inspect import inspect_lines
+
+    for line in _guarded(debug, lambda: inspect_lines(run, config_path)):
+        click.echo(line)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()
