@@ -151,6 +151,7 @@ def process_to_files(
     run_path: str | Path, config: str | Path | Config, out_dir: str | Path, *, plots: bool = True
 ) -> NightOutcome:
     """Process one night and write ``OUT/<run stem>.h5`` (atomically) and its figures."""
+    from .report import render_report
     from .report.hdf5 import write_result
 
     run_path = Path(run_path)
@@ -158,11 +159,6 @@ def process_to_files(
     out_dir.mkdir(parents=True, exist_ok=True)
     result = process_run(run_path, config)
     h5 = write_result(out_dir / f"{run_stem(run_path)}.h5", result)
-    figures: list[Path] = []
-    if plots:
-        from .report.plots import plot_lambda_overview
-        from .result import read_result
-
-        res = read_result(h5)  # figures are rebuilt from the result file alone
-        figures.append(plot_lambda_overview(res, out_dir / f"{run_stem(run_path)}_lambda.png"))
-    return NightOutcome(run=run_path, result_file=h5, figures=figures, result=result)
+    # Figures and summary are rebuilt from the result file alone.
+    outputs = render_report(h5, out_dir, plots=plots)
+    return NightOutcome(run=run_path, result_file=h5, figures=outputs, result=result)

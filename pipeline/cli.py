@@ -121,13 +121,33 @@ def fuels() -> None:
 @click.argument("run", type=click.Path(path_type=Path))
 @click.option("--config", "-c", "config_path", type=click.Path(path_type=Path), default=None,
               help="Cell config to show the mapping of.")
+@click.option("--json", "as_json", is_flag=True, help="Machine-readable output (JSON).")
+@click.option("--write", "write_path", type=click.Path(path_type=Path), default=None,
+              help="Without --config: write the proposed [channels] config to this file.")
 @click.option("--debug", is_flag=True, help="Show tracebacks of errors.")
-def inspect(run: Path, config_path: Path | None, debug: bool) -> None:
+def inspect(run: Path, config_path: Path | None, as_json: bool, write_path: Path | None,
+            debug: bool) -> None:
     """Show the columns, units and value ranges of RUN and how a config maps them."""
-    from .inspect import inspect_lines
+    from .inspect import inspect_run
 
-    for line in _guarded(debug, lambda: inspect_lines(run, config_path)):
+    for line in _guarded(debug, lambda: inspect_run(run, config_path, as_json, write_path)):
         click.echo(line)
+
+
+@main.command()
+@click.argument("result", type=click.Path(path_type=Path))
+@click.option("--out", "-o", "out_dir", default=None,
+              type=click.Path(file_okay=False, path_type=Path),
+              help="Folder for the figures and summary (default: beside the result file).")
+@click.option("--no-plots", is_flag=True, help="Write the summary only, no figures.")
+@click.option("--debug", is_flag=True, help="Show tracebacks of errors.")
+def report(result: Path, out_dir: Path | None, no_plots: bool, debug: bool) -> None:
+    """Re-render the figures and summary of an existing RESULT file (.h5)."""
+    from .report import render_report
+
+    target = out_dir if out_dir is not None else result.parent
+    for path in _guarded(debug, lambda: render_report(result, target, plots=not no_plots)):
+        click.echo(str(path))
 
 
 if __name__ == "__main__":  # pragma: no cover

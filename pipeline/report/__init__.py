@@ -13,8 +13,9 @@ from __future__ import annotations
 from typing import Any
 
 from .hdf5 import write_result
+from .render import render_report
 
-__all__ = ["envelope", "plot_lambda_overview", "write_result"]
+__all__ = ["envelope", "plot_lambda_overview", "render_report", "write_result"]
 
 _PLOTS = {"envelope", "plot_lambda_overview"}
 
