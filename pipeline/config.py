@@ -19,7 +19,15 @@ from .quantities import INPUTS
 
 REQUIRED_CHANNELS = ("time", "fuel_mass_flow", "air_mass_flow", "co2", "o2")
 
-_TOP_KEYS = {"run", "fuel", "input", "channels", "sampling", "checks"}
+_TOP_KEYS = {
+    "run", "fuel", "input", "channels", "sampling", "checks", "methods", "drift_correction",
+    "verification",
+}
+_METHODS_KEYS = {"extra_lambda"}
+_DRIFTCOR_KEYS = {"zero_mode", "span_mode", "settle_s"}
+_DRIFTCOR_GAS_KEYS = {"span_gas", "zero_gas", "pre_zero", "pre_span", "post_zero", "post_span"}
+_VERIFICATION_KEYS = {"eps_rC_max", "eps_aC_max_g", "eps_aCrate_max_g_per_h",
+                      "drift_validation_limit"}
 _RUN_KEYS = {"name", "description"}
 _FUEL_KEYS = {
     "preset", "blend", "h_c", "o_c", "s_c", "n_c", "c", "lhv_MJ_per_kg", "density_kg_per_m3"
@@ -33,6 +41,7 @@ _SAMPLING_KEYS = {
     "intake_co2_ppm",
     "not_sampling_carbon_fraction",
     "nox_no2_fraction",
+    "condensation_margin_K",
 }
 
 
@@ -94,6 +103,9 @@ class Sampling:
     nox_no2_fraction: share of NO2 in a NOx reading when NO and NO2 are not measured apart.
         40 CFR 1065.656(c)(1): 0 for stoichiometric engines, 0.25 for lean-burn engines, 0.75
         with NO2-storage aftertreatment.
+    condensation_margin_K: a ``condensation_risk`` flag is raised where the logged
+        sample-line temperature is below the exhaust dew point plus this margin (common
+        practice: keep heated lines well above the dew point).
     """
 
     dryer_dewpoint_degC: float | None = None
@@ -102,6 +114,51 @@ class Sampling:
     intake_co2_ppm: float = 375.0
     not_sampling_carbon_fraction: float = 0.003
     nox_no2_fraction: float = 0.0
+    condensation_margin_K: float = 5.0
+
+
+@dataclass(frozen=True)
+class DriftReference:
+    """Zero/span references of one analyzer for the 40 CFR 1065.672 drift correction.
+
+    All in the channel's own unit, as the analyzer reads. ``span_gas`` (x_refspan) is the
+    span-gas concentration; ``zero_gas`` (x_refzero) normally 0. Pre/post readings given here
+    override the ones found in the log's ``analyzer_mode`` windows.
+    """
+
+    gas: str
+    span_gas: float
+    zero_gas: float = 0.0
+    pre_zero: float | None = None
+    pre_span: float | None = None
+    post_zero: float | None = None
+    post_span: float | None = None
+
+
+@dataclass(frozen=True)
+class DriftCorrection:
+    """``[drift_correction]``: analyzer_mode codes of zero and span windows, the settling
+    time skipped at both ends of a window, and the references per analyzer."""
+
+    zero_mode: float = 1
+    span_mode: float = 2
+    settle_s: float = 60.0
+    gases: dict[str, DriftReference] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class Verification:
+    """``[verification]``: user limits for pass/fail verdicts.
+
+    40 CFR 1065.543 limits for the carbon-balance error were not available to us, so the
+    carbon-balance verdict is given only against limits configured here (absolute values).
+    ``drift_validation_limit`` is the 1065.550 limit (default 0.04, from memory).
+    """
+
+    eps_rC_max: float | None = None
+    eps_aC_max_g: float | None = None
+    eps_aCrate_max_g_per_h: float | None = None
+    drift_validation_limit: float = 0.04
 
 
 @dataclass
@@ -116,21 +173,49 @@ class Config:
     channels: dict[str, Channel]
     sampling: Sampling
     checks: dict[str, Any] = field(default_factory=dict)
+    extra_lambda: tuple[str, ...] = ()
+    drift_correction: DriftCorrection = field(default_factory=DriftCorrection)
+    verification: Verification = field(default_factory=Verification)
     raw: dict[str, Any] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
-        """The resolved config as plain data (defaults filled in), for the result file."""
-        fuel = {k: v for k, v in self.fuel.properties().items()}
+        """The resolved config as plain data (defaults filled in), for the result file.
+
+        It loads again as a config: the fuel is written as its explicit atomic ratios (the
+        preset name and derived properties are in the result file's ``fuel`` attribute).
+        """
+        f = self.fuel
+        fuel: dict[str, Any] = {"h_c": f.h_c, "o_c": f.o_c, "s_c": f.s_c, "n_c": f.n_c}
+        if f.c != 1.0:
+            fuel["c"] = f.c
+        for key in ("lhv_MJ_per_kg", "density_kg_per_m3"):
+            if getattr(f, key) is not None:
+                fuel[key] = getattr(f, key)
+
+        def channel(ch: Channel) -> dict[str, Any]:
+            d = {k: v for k, v in asdict(ch).items() if v is not None and k != "quantity"}
+            if ch.quantity != "thc":
+                d.pop("carbon_number", None)
+            return d
+
         return {
             "run": {"name": self.run_name, "description": self.description},
             "fuel": fuel,
             "input": {k: v for k, v in asdict(self.input).items() if v is not None},
-            "channels": {
-                name: {k: v for k, v in asdict(ch).items() if v is not None and k != "quantity"}
-                for name, ch in self.channels.items()
-            },
+            "channels": {name: channel(ch) for name, ch in self.channels.items()},
             "sampling": {k: v for k, v in asdict(self.sampling).items() if v is not None},
             "checks": dict(self.checks),
+            "methods": {"extra_lambda": list(self.extra_lambda)},
+            "drift_correction": {
+                "zero_mode": self.drift_correction.zero_mode,
+                "span_mode": self.drift_correction.span_mode,
+                "settle_s": self.drift_correction.settle_s,
+                **{
+                    g: {k: v for k, v in asdict(ref).items() if v is not None and k != "gas"}
+                    for g, ref in self.drift_correction.gases.items()
+                },
+            },
+            "verification": {k: v for k, v in asdict(self.verification).items() if v is not None},
         }
 
     def to_toml(self) -> str:
@@ -281,6 +366,62 @@ def _parse_channel(name: str, table: Any, path: Path) -> Channel:
     return Channel(name, unit, column, value, basis, carbon_number, fmt, rng)
 
 
+def _parse_methods(table: Any, path: Path) -> tuple[str, ...]:
+    from .balance.methods import EXTRA_METHODS
+
+    if not isinstance(table, dict):
+        raise ConfigError(f"{path}: [methods] must be a table.")
+    _check_keys(table, _METHODS_KEYS, "[methods]", path)
+    names = table.get("extra_lambda", [])
+    if not isinstance(names, list) or not all(isinstance(n, str) for n in names):
+        raise ConfigError(
+            f'{path}: [methods] extra_lambda must be a list, e.g. ["spindt", "iso16183"].'
+        )
+    for name in names:
+        if name not in EXTRA_METHODS:
+            raise ConfigError(
+                f"{path}: unknown method '{name}' in [methods] extra_lambda."
+                f"{_hint(name, set(EXTRA_METHODS))} Available: {', '.join(EXTRA_METHODS)}."
+            )
+    return tuple(dict.fromkeys(names))
+
+
+def _parse_drift_correction(
+    table: Any, channels: dict[str, Channel], path: Path
+) -> DriftCorrection:
+    if not isinstance(table, dict):
+        raise ConfigError(f"{path}: [drift_correction] must be a table.")
+    gases: dict[str, DriftReference] = {}
+    options: dict[str, float] = {}
+    for key, value in table.items():
+        if isinstance(value, dict):
+            where = f"[drift_correction.{key}]"
+            if key not in INPUTS or INPUTS[key].kind != "gas":
+                gas_names = {q for q, v in INPUTS.items() if v.kind == "gas"}
+                raise ConfigError(
+                    f"{path}: {where} is not a gas analyzer.{_hint(key, gas_names)}"
+                )
+            if key not in channels:
+                raise ConfigError(f"{path}: {where} refers to a channel that is not mapped.")
+            _check_keys(value, _DRIFTCOR_GAS_KEYS, where, path)
+            if "span_gas" not in value:
+                raise ConfigError(
+                    f"{path}: {where} needs span_gas = <span-gas concentration in the "
+                    f"channel unit ({channels[key].unit})>."
+                )
+            nums = {k: _number(v, f"{where} {k}", path) for k, v in value.items()}
+            gases[key] = DriftReference(gas=key, **nums)
+        else:
+            if key not in _DRIFTCOR_KEYS:
+                raise ConfigError(
+                    f"{path}: unknown key '{key}' in [drift_correction]."
+                    f"{_hint(key, _DRIFTCOR_KEYS)} Allowed: {', '.join(sorted(_DRIFTCOR_KEYS))} "
+                    "and one [drift_correction.<gas>] table per analyzer."
+                )
+            options[key] = _number(value, f"[drift_correction] {key}", path)
+    return DriftCorrection(**options, gases=gases)
+
+
 def parse_config(raw: dict[str, Any], path: Path) -> Config:
     """Validate a parsed TOML document and resolve defaults."""
     _check_keys(raw, _TOP_KEYS, "the top level", path)
@@ -324,6 +465,14 @@ def parse_config(raw: dict[str, Any], path: Path) -> Config:
     _check_keys(samp, _SAMPLING_KEYS, "[sampling]", path)
     sampling = Sampling(**{k: _number(v, f"[sampling].{k}", path) for k, v in samp.items()})
 
+    extra_lambda = _parse_methods(raw.get("methods", {}), path)
+    drift_correction = _parse_drift_correction(raw.get("drift_correction", {}), channels, path)
+    ver = raw.get("verification", {})
+    _check_keys(ver, _VERIFICATION_KEYS, "[verification]", path)
+    verification = Verification(
+        **{k: abs(_number(v, f"[verification].{k}", path)) for k, v in ver.items()}
+    )
+
     checks = raw.get("checks", {})
     if not isinstance(checks, dict):
         raise ConfigError(f"{path}: [checks] must be a table.")
@@ -336,6 +485,9 @@ def parse_config(raw: dict[str, Any], path: Path) -> Config:
         channels=channels,
         sampling=sampling,
         checks=dict(checks),
+        extra_lambda=extra_lambda,
+        drift_correction=drift_correction,
+        verification=verification,
         raw=raw,
     )
 

@@ -1,0 +1,67 @@
+"""Config parsing: contract keys, defaults, round trip of the resolved config."""
+
+import tomllib
+from pathlib import Path
+
+import pytest
+
+from pipeline.config import load_config, parse_config
+from pipeline.errors import ConfigError
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def test_sample_config_loads_and_resolved_toml_round_trips():
+    cfg = load_config(ROOT / "configs" / "cell_b3.toml")
+    again = parse_config(tomllib.loads(cfg.to_toml()), Path("resolved.toml"))
+    assert again.fuel.afr_stoich == pytest.approx(cfg.fuel.afr_stoich, rel=1e-12)
+    assert again.channels == cfg.channels
+    assert again.sampling == cfg.sampling
+    assert again.drift_correction == cfg.drift_correction
+
+
+def _minimal(**extra):
+    raw = {
+        "fuel": {"preset": "diesel_2"},
+        "channels": {
+            "time": {"column": "t", "unit": "s"},
+            "fuel_mass_flow": {"column": "f", "unit": "kg/h"},
+            "air_mass_flow": {"column": "a", "unit": "kg/h", "basis": "wet"},
+            "co2": {"column": "c", "unit": "%", "basis": "dry"},
+            "o2": {"column": "o", "unit": "%", "basis": "dry"},
+        },
+    }
+    raw.update(extra)
+    return raw
+
+
+@pytest.mark.parametrize(
+    ("extra", "match"),
+    [
+        ({"method": {}}, 'Did you mean "methods"'),
+        ({"methods": {"extra_lambda": ["spindtt"]}}, 'Did you mean "spindt"'),
+        ({"drift_correction": {"co2": {"pre_zero": 0.0}}}, "needs span_gas"),
+        ({"drift_correction": {"nox": {"span_gas": 1500}}}, "not mapped"),
+        ({"drift_correction": {"settle": 30}}, 'Did you mean "settle_s"'),
+        ({"verification": {"eps_rc_max": 0.02}}, 'Did you mean "eps_rC_max"'),
+        ({"sampling": {"dryer_dewpoint": 4}}, 'Did you mean "dryer_dewpoint_degC"'),
+    ],
+)
+def test_config_errors_name_the_key_and_the_fix(extra, match):
+    with pytest.raises(ConfigError, match=match):
+        parse_config(_minimal(**extra), Path("cell.toml"))
+
+
+def test_blend_and_methods_and_drift_tables_parse():
+    cfg = parse_config(
+        _minimal(
+            fuel={"blend": {"diesel_2": 0.9, "ethanol": 0.1}},
+            methods={"extra_lambda": ["spindt", "iso16183"]},
+            drift_correction={"settle_s": 30, "co2": {"span_gas": 12.0}},
+            verification={"eps_rC_max": 0.02},
+        ),
+        Path("cell.toml"),
+    )
+    assert cfg.fuel.o_c > 0 and cfg.extra_lambda == ("spindt", "iso16183")
+    assert cfg.drift_correction.gases["co2"].span_gas == 12.0
+    assert cfg.verification.eps_rC_max == 0.02
