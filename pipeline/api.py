@@ -18,6 +18,8 @@ import pandas as pd
 
 from . import __version__
 from .balance import compute_balance
+from .balance.driftcor import apply_drift_correction
+from .balance.tables import emissions_table
 from .checks import run_checks
 from .checks.alignment import align_analyzers
 from .config import Config, load_config
@@ -97,8 +99,42 @@ def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessRes
     series = pd.concat(
         [frame.reset_index(drop=True), bal.derived, pd.DataFrame(checked.series)], axis=1
     )
+    tables = dict(checked.tables)
+    notes = run.meta.warnings + bal.warnings
+
+    # 40 CFR 1065.672 drift correction, when zero/span references are configured: correct
+    # the analyzer readings, recompute, and compare (1065.550) in the emissions table.
+    corrected_frame, readings, dc_notes = apply_drift_correction(frame, cfg)
+    corrected = None
+    if corrected_frame is not None:
+        notes.extend(dc_notes)
+        corrected = compute_balance(corrected_frame, cfg).derived
+        tables["drift_correction"] = readings
+        for g in cfg.drift_correction.gases:
+            series[f"{g}_driftcor"] = corrected_frame[g].to_numpy()
+        for name in ("co2_mass_flow", "co_mass_flow", "nox_mass_flow", "thc_mass_flow"):
+            if name in corrected:
+                series[f"{name}_driftcor"] = corrected[name].to_numpy()
+    steady = tables.get("steady_points")
+    intervals = (
+        [(f"SP{i + 1:02d}", float(a), float(b))
+         for i, (a, b) in enumerate(zip(steady["start_s"], steady["end_s"], strict=True))]
+        if steady is not None and len(steady) else []
+    )
+    if "co2_mass_flow" in series or "nox_mass_flow" in series:
+        tables["emissions"] = emissions_table(
+            series, intervals, cfg.fuel, cfg.verification, corrected
+        )
     series_attrs = _series_attrs(cfg, run)
     series_attrs.update(checked.series_attrs)
+    for name in series.columns:
+        base = name.removesuffix("_driftcor")
+        if base != name and base in series_attrs:
+            series_attrs[name] = {
+                **series_attrs[base],
+                "long_name": f"{series_attrs[base]['long_name']}, drift-corrected "
+                "(40 CFR 1065.672)",
+            }
 
     meta = run.meta
     attrs: dict[str, Any] = {
@@ -117,7 +153,7 @@ def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessRes
         "rows_read": meta.rows_read,
         "rows_dropped": meta.rows_dropped,
         "bad_cells": dict(meta.bad_cells),
-        "warnings": list(meta.warnings + bal.warnings),
+        "warnings": notes,
         "input_metadata": dict(meta.metadata),
         "balance": dict(bal.attrs),
         "checks_settings": dict(checked.attrs),
@@ -130,7 +166,7 @@ def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessRes
         series=series,
         series_attrs=series_attrs,
         flags=_sorted_flags([bal.flags, gaps, checked.flags]),
-        tables=dict(checked.tables),
+        tables=tables,
         group_attrs={"alignment": alignment},
         attrs=attrs,
         summary=list(checked.summary) if hasattr(checked, "summary") else [],

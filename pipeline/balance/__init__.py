@@ -37,6 +37,7 @@ from .humidity import (
     x_h2o_from_g_per_kg,
     x_h2o_from_rh,
 )
+from .methods import lambda_iso16183, lambda_spindt
 from .oxygen import lambda_brettschneider, lambda_oxygen_carbon_free
 
 __all__ = ["BalanceResult", "compute_balance", "chemical_balance", "lambda_brettschneider"]
@@ -230,10 +231,31 @@ def compute_balance(frame: pd.DataFrame, config: Config) -> BalanceResult:
         }
     )
     extra = _derived_results(frame, config, chem, x_h2o_int, x_h2o_exh, x_h2o_dryer, basis)
+    if config.extra_lambda:
+        o2_dry_all = None
+        if chem is not None and o2 is not None:
+            o2_dry_all = o2 / (1.0 - _analyzer_water(basis.get("o2"), x_h2o_dryer, x_h2o_exh))
+        methods, notes = _extra_lambdas(config, chem, o2_dry_all, n)
+        extra.update(methods)
+        warnings.extend(notes)
     derived = pd.concat([derived, pd.DataFrame(extra)], axis=1)
 
     fuel_on = np.nan_to_num(fuel_flow, nan=0.0) > 0
-    rows = []
+    rows = _condensation_flags(frame, t, dew, s.condensation_margin_K)
+    for name in config.extra_lambda:
+        if not np.isfinite(derived[f"lambda_{name}"]).any() and n:
+            rows.append(
+                {
+                    "start_s": float(t[0]),
+                    "end_s": float(t[-1]),
+                    "check": "method_invalid",
+                    "suspect": "",
+                    "severity": "info",
+                    "value": np.nan,
+                    "message": f"lambda_{name} is not valid for fuel '{fuel.name}' "
+                    f"(O/C {fuel.o_c:g}); the series is NaN.",
+                }
+            )
     for start, end, i0, i1 in mask_to_intervals(t, not_sampling & fuel_on):
         why = (
             "analyzer_mode reports zero/span/purge"
@@ -285,7 +307,11 @@ def _derived_results(
     air = frame["air_mass_flow"].to_numpy(float)
     fuel_flow = frame["fuel_mass_flow"].to_numpy(float)
     n_int = intake_molar_flow(air, x_h2o_int, basis=config.channels["air_mass_flow"].basis)
-    out: dict[str, np.ndarray] = {}
+    out: dict[str, np.ndarray] = {
+        "intake_molar_flow": n_int,
+        # Eq. 1065.655-10: x_CO2int = x_CO2intdry / (1 + x_H2Ointdry).
+        "intake_co2_fraction": config.sampling.intake_co2_ppm * 1e-6 * (1.0 - x_h2o_int),
+    }
     if chem is not None:
         ok = np.isfinite(chem.lambda_) & (chem.lambda_ > 0)
         wet = {k: np.where(ok, v, np.nan) for k, v in wet_fractions(chem).items()}
@@ -329,6 +355,60 @@ def _derived_results(
     if "speed" in frame and "torque" in frame:
         out["brake_power"] = brake_power_kw(frame["speed"], frame["torque"])
     return out
+
+
+def _extra_lambdas(
+    config: Config, chem: ChemicalBalance | None, o2_dry: np.ndarray | None, n: int
+) -> tuple[dict[str, np.ndarray], list[str]]:
+    """The alternative lambda methods asked for in ``[methods] extra_lambda``."""
+    fuel = config.fuel
+    out: dict[str, np.ndarray] = {}
+    notes: list[str] = []
+    for name in config.extra_lambda:
+        if chem is None or (name == "spindt" and fuel.o_c > 0):
+            why = "the fuel has no carbon" if chem is None else "Spindt has no fuel-oxygen term"
+            notes.append(f"lambda_{name} not computed: {why} (fuel '{fuel.name}').")
+            out[f"lambda_{name}"] = np.full(n, np.nan)
+            continue
+        if name == "spindt":
+            o2 = o2_dry if o2_dry is not None else np.full(n, np.nan)
+            lam = lambda_spindt(fuel, chem.dry["co2"], o2, chem.dry["co"], chem.dry["thc"])
+        else:  # iso16183: CO2 and CO dry, THC wet
+            lam = lambda_iso16183(
+                fuel, chem.dry["co2"], chem.dry["co"], chem.dry["thc"] * (1 - chem.x_h2o_exh)
+            )
+        out[f"lambda_{name}"] = _positive(lam)
+    return out, notes
+
+
+def _condensation_flags(
+    frame: pd.DataFrame, t: np.ndarray, dew: np.ndarray, margin_k: float
+) -> list[dict[str, Any]]:
+    """``condensation_risk`` where the logged sample-line temperature is below the exhaust
+    dew point plus the margin (intervals closer than 60 s merged, shorter than 10 s
+    ignored)."""
+    if "sample_line_temperature" not in frame:
+        return []
+    line = frame["sample_line_temperature"].to_numpy(float)
+    with np.errstate(invalid="ignore"):
+        short = line - (dew + margin_k)
+        risk = np.isfinite(short) & (short < 0)
+    rows = []
+    for start, end, i0, i1 in mask_to_intervals(t, risk, min_duration_s=10.0, merge_gap_s=60.0):
+        worst = float(np.nanmin((line - dew)[i0 : i1 + 1]))
+        rows.append(
+            {
+                "start_s": start,
+                "end_s": end,
+                "check": "condensation_risk",
+                "suspect": "sample_line_temperature",
+                "severity": "warning",
+                "value": worst,
+                "message": f"Sample line only {worst:.1f} K above the exhaust dew point "
+                f"(margin {margin_k:g} K): water may condense and wash out NO2 and HC.",
+            }
+        )
+    return rows
 
 
 def _positive(x: np.ndarray) -> np.ndarray:

@@ -14,11 +14,16 @@ missing post value makes the correction impossible there (NaN, reported).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
+import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
 from ..intervals import runs
+
+if TYPE_CHECKING:
+    from ..config import Config
 
 #: 1065.550 drift validation: corrected and uncorrected brake-specific results may differ by
 #: at most this fraction of the uncorrected result (REFERENCES 1.10, [M]).
@@ -115,3 +120,85 @@ def validation(uncorrected: float, corrected: float) -> tuple[float, bool]:
         return float("nan"), False
     diff = (corrected - uncorrected) / abs(uncorrected)
     return float(diff), bool(abs(diff) <= VALIDATION_LIMIT)
+
+
+def apply_drift_correction(
+    frame: pd.DataFrame, config: Config
+) -> tuple[pd.DataFrame | None, pd.DataFrame | None, list[str]]:
+    """Drift-correct the configured analyzer channels of ``frame`` (40 CFR 1065.672).
+
+    Returns ``(corrected_frame, readings_table, notes)``; ``corrected_frame`` is None when no
+    analyzer has a ``[drift_correction.<gas>]`` table. References and configured readings are
+    in the channel's unit and converted like the data (THC also by its carbon number).
+    Readings not given in the config are taken from the log's zero/span windows. Samples
+    without a post zero and post span reading after them cannot be corrected and are NaN.
+    """
+    from ..units import converter
+
+    dc = config.drift_correction
+    if not dc.gases:
+        return None, None, []
+    t = frame["time"].to_numpy(float)
+    mode = frame["analyzer_mode"].to_numpy(float) if "analyzer_mode" in frame else None
+    out = frame.copy()
+    rows = []
+    notes: list[str] = []
+    for gas, ref in dc.gases.items():
+        ch = config.channels[gas]
+        conv = converter(ch.unit, gas, f"[drift_correction.{gas}]")
+        scale = ch.carbon_number if gas == "thc" else 1.0
+
+        def canon(v: float | None, conv=conv, scale=scale) -> float | None:
+            return None if v is None else float(conv(np.array([v]))[0]) * scale
+
+        ref_zero, ref_span = canon(ref.zero_gas), canon(ref.span_gas)
+        found = (
+            readings_from_log(t, frame[gas].to_numpy(float), mode, zero_code=dc.zero_mode,
+                              span_code=dc.span_mode, settle_s=dc.settle_s)
+            if mode is not None else []
+        )
+        given = {
+            "pre_zero": canon(ref.pre_zero), "pre_span": canon(ref.pre_span),
+            "post_zero": canon(ref.post_zero), "post_span": canon(ref.post_span),
+        }
+        # Configured readings stand before the first / after the last sample.
+        for key, value in given.items():
+            if value is not None:
+                when = t[0] - 1.0 if key.startswith("pre") else t[-1] + 1.0
+                found.append(CalReading(key.split("_")[1], when, when, value))
+                rows.append((gas, key.split("_")[1], "config", np.nan, np.nan, value))
+        found.sort(key=lambda r: r.start_s)
+        for r in found:
+            if not np.isnan(r.start_s) and t[0] <= r.start_s <= t[-1]:
+                rows.append((gas, r.kind, "log", r.start_s, r.end_s, r.value))
+        pre_z, post_z = pre_post(t, found, "zero", ref_zero)
+        pre_s, post_s = pre_post(t, found, "span", ref_span)
+        out[gas] = drift_correct(frame[gas].to_numpy(float), ref_zero, ref_span,
+                                 pre_z, pre_s, post_z, post_s)
+        uncovered = ~np.isfinite(post_z + post_s)
+        if uncovered.any():
+            notes.append(
+                f"Drift correction of {gas}: no zero/span reading after "
+                f"{int(uncovered.sum())} samples; those are not corrected (NaN) and the "
+                "1065.550 comparison covers the rest."
+            )
+    readings = pd.DataFrame(
+        rows, columns=["gas", "kind", "source", "start_s", "end_s", "value"]
+    )
+    for gas, ref in dc.gases.items():
+        span = readings["gas"] == gas
+        ch = config.channels[gas]
+        conv = converter(ch.unit, gas, f"[drift_correction.{gas}]")
+        scale = ch.carbon_number if gas == "thc" else 1.0
+        ref_span = float(conv(np.array([ref.span_gas]))[0]) * scale
+        ref_zero = float(conv(np.array([ref.zero_gas]))[0]) * scale
+        reference = np.where(readings.loc[span, "kind"] == "zero", ref_zero, ref_span)
+        readings.loc[span, "reference"] = reference
+        readings.loc[span, "error_pct_of_span"] = (
+            (readings.loc[span, "value"] - reference) / ref_span * 100.0
+        )
+    readings.attrs["units"] = {
+        "start_s": "s", "end_s": "s", "value": "mol/mol", "reference": "mol/mol",
+        "error_pct_of_span": "percent",
+    }
+    return out, readings, notes
