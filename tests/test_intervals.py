@@ -11,7 +11,7 @@ def test_runs_and_intervals():
     assert s.tolist() == [1, 5, 7] and e.tolist() == [2, 5, 9]
     t = np.arange(10.0)
     assert [iv[:2] for iv in mask_to_intervals(t, m)] == [(1.0, 2.0), (5.0, 5.0), (7.0, 9.0)]
-    merged = mask_to_intervals(t, m, merge_gap_s=2.0)
+    merged = mask_to_intervals(t, m, merge_gap_s=3.0)
     assert [iv[:2] for iv in merged] == [(1.0, 9.0)]
     assert [iv[:2] for iv in mask_to_intervals(t, m, min_duration_s=1.5)] == [(7.0, 9.0)]
 
