@@ -146,6 +146,7 @@ def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessRes
         "source_sha256": meta.sha256,
         "config_file": cfg.path.name,
         "config_toml": cfg.to_toml(),
+        "config_sha256": cfg.sha256(),
         "run_name": cfg.run_name,
         "run_description": cfg.description,
         "fuel": cfg.fuel.properties(),

@@ -54,7 +54,7 @@ def main() -> None:
 
 
 @main.command()
-@click.argument("runs", nargs=-1, required=True, type=click.Path(path_type=Path))
+@click.argument("runs", nargs=-1, required=True)
 @click.option(
     "--config", "-c", "config_path", required=True, type=click.Path(path_type=Path),
     help="Cell config (TOML) mapping the log's columns to dynoqc quantities.",
@@ -63,43 +63,64 @@ def main() -> None:
     "--out", "-o", "out_dir", default=Path("out"), show_default=True,
     type=click.Path(file_okay=False, path_type=Path), help="Folder for results.",
 )
-@click.option("--no-plots", is_flag=True, help="Write the result file only, no figures.")
+@click.option("--no-plots", is_flag=True, help="Write the result file and summary, no figures.")
+@click.option("--jobs", "-j", default=1, show_default=True, type=click.IntRange(min=1),
+              help="Nights processed in parallel (local process pool).")
+@click.option("--scheduler", default=None, metavar="ADDRESS",
+              help="Send the nights to a Dask distributed cluster (needs the cluster extra).")
+@click.option("--force", is_flag=True,
+              help="Redo nights whose input, config and tool version are unchanged.")
+@click.option("--no-progress", is_flag=True, help="No progress bar on stderr.")
 @click.option("--debug", is_flag=True, help="Show tracebacks of errors.")
-def process(runs: tuple[Path, ...], config_path: Path, out_dir: Path, no_plots: bool,
-            debug: bool) -> None:
-    """Process logged night(s) RUNS into OUT/<run>.h5 plus figures."""
-    from .api import process_to_files
-    from .config import load_config
-    from .summary import night_summary
+def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: bool, jobs: int,
+            scheduler: str | None, force: bool, no_progress: bool, debug: bool) -> None:
+    """Process logged night(s) RUNS (files, folders or glob patterns) into OUT/<run>.h5 plus
+    figures and a summary; with several nights also OUT/dynoqc_index.csv and .json."""
+    import os
 
-    config = _guarded(debug, lambda: load_config(config_path))
+    from .batch import expand_inputs, run_batch, write_index
+    from .config import load_config
+
+    if debug:
+        os.environ["DYNOQC_DEBUG"] = "1"
+    paths = _guarded(debug, lambda: expand_inputs(runs))
+    _guarded(debug, lambda: load_config(config_path))  # a bad config stops before any night
+    show = not no_progress and len(paths) > 1 and sys.stderr.isatty()
+    reports = []
     worst = EXIT_OK
-    for run in runs:
-        if not run.is_file():
-            click.echo(f"dynoqc: {run}: no such file.", err=True)
-            worst = max(worst, EXIT_DATA)
-            continue
-        try:
-            outcome = process_to_files(run, config, out_dir, plots=not no_plots)
-        except DynoqcError as exc:
-            if debug:
-                traceback.print_exc()
-            click.echo(f"dynoqc: {exc}", err=True)
-            worst = max(worst, exc.exit_code)
-            continue
-        except KeyboardInterrupt:
-            _fail("interrupted; no partial result was left behind.", 130)
-        except Exception as exc:
-            if debug:
-                traceback.print_exc()
-            click.echo(
-                f"dynoqc: {run}: internal error ({type(exc).__name__}: {exc}). Run again "
-                "with --debug for the traceback and please report it.", err=True,
-            )
-            worst = max(worst, EXIT_INTERNAL)
-            continue
-        for line in night_summary(outcome):
-            click.echo(line)
+
+    def consume(items) -> None:  # noqa: ANN001 - an iterator of NightReport
+        nonlocal worst
+        for rep in items:
+            reports.append(rep)
+            if rep.status == "failed":
+                click.echo(f"dynoqc: {rep.message}", err=True)
+                worst = max(worst, rep.exit_code)
+            for line in rep.lines:
+                click.echo(line)
+
+    batch = run_batch(paths, config_path, out_dir, plots=not no_plots, force=force,
+                      jobs=jobs, scheduler=scheduler)
+    try:
+        if show:
+            with click.progressbar(length=len(paths), label="nights", file=sys.stderr) as bar:
+                def ticking():  # noqa: ANN202
+                    for rep in batch:
+                        bar.update(1)
+                        yield rep
+                consume(ticking())
+        else:
+            consume(batch)
+    except KeyboardInterrupt:
+        _fail("interrupted; no partial result was left behind.", 130)
+    except DynoqcError as exc:
+        _fail(str(exc), exc.exit_code)
+    if len(paths) > 1:
+        csv_path, json_path = write_index(reports, out_dir)
+        done = sum(r.status == "processed" for r in reports)
+        skipped = sum(r.status == "skipped" for r in reports)
+        failed = sum(r.status == "failed" for r in reports)
+        click.echo(f"{done} processed, {skipped} skipped, {failed} failed; index: {csv_path}")
     sys.exit(worst)
 
 

@@ -222,6 +222,12 @@ class Config:
         """The resolved config as TOML text."""
         return dumps_toml(self.to_dict())
 
+    def sha256(self) -> str:
+        """SHA-256 of the resolved config (a night is redone when it changes)."""
+        import hashlib
+
+        return hashlib.sha256(self.to_toml().encode("utf-8")).hexdigest()
+
 
 def _toml_value(v: Any) -> str:
     if isinstance(v, bool):

@@ -1,0 +1,262 @@
+"""Many nights: input expansion, skip-if-unchanged, a process pool or a Dask cluster, and
+the batch index.
+
+Workers get paths and return a small :class:`NightReport`; each worker writes its own result
+file and figures, so no data frames are pickled. The local pool and a Dask cluster share one
+code path: both are :class:`concurrent.futures.Executor` objects (Dask's
+``Client.get_executor``).
+"""
+
+from __future__ import annotations
+
+import csv
+import glob
+import hashlib
+import json
+import os
+import time
+import traceback
+from collections.abc import Callable, Iterator, Sequence
+from concurrent.futures import Executor, Future, ProcessPoolExecutor, as_completed
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+
+from .errors import ConfigError, DynoqcError
+
+#: File name patterns taken from a folder given as input.
+RUN_PATTERNS = ("*.csv", "*.csv.gz", "*.tsv", "*.tsv.gz", "*.txt", "*.txt.gz", "*.parquet",
+                "*.mf4", "*.MF4")
+INDEX_NAME = "dynoqc_index"
+
+
+@dataclass
+class NightReport:
+    """What one night's processing reports back (small and picklable).
+
+    status: ``processed``, ``skipped`` (result up to date) or ``failed``; exit_code: the
+    documented code of this night (0, 1 internal, 2 config, 3 data).
+    """
+
+    run: str
+    status: str
+    exit_code: int = 0
+    result_file: str = ""
+    message: str = ""
+    rows: int = 0
+    hours: float = 0.0
+    flags: dict[str, int] = field(default_factory=dict)
+    verdicts: dict[str, str] = field(default_factory=dict)
+    lines: list[str] = field(default_factory=list)
+    outputs: list[str] = field(default_factory=list)
+    seconds: float = 0.0
+
+
+def expand_inputs(items: Sequence[str | Path]) -> list[Path]:
+    """Files as given; folders by :data:`RUN_PATTERNS` (not recursive); glob patterns
+    expanded. Order kept, duplicates removed. A name that matches nothing is an error."""
+    out: list[Path] = []
+    for item in items:
+        p = Path(item)
+        if p.is_dir():
+            found = sorted({f for pat in RUN_PATTERNS for f in p.glob(pat) if f.is_file()})
+            if not found:
+                raise ConfigError(f"{p}: folder holds no run files ({', '.join(RUN_PATTERNS)}).")
+            out.extend(found)
+        elif p.exists():
+            out.append(p)
+        elif glob.has_magic(str(item)):
+            found = sorted(Path(f) for f in glob.glob(str(item)) if Path(f).is_file())
+            if not found:
+                raise ConfigError(f"{item}: pattern matches no file.")
+            out.extend(found)
+        else:
+            raise ConfigError(f"{item}: no such file or folder.")
+    return list(dict.fromkeys(p.resolve() for p in out))
+
+
+def file_sha256(path: Path) -> str:
+    """SHA-256 of a file's bytes (streamed)."""
+    with open(path, "rb") as fh:
+        return hashlib.file_digest(fh, "sha256").hexdigest()
+
+
+def up_to_date(result: Path, source_sha256: str, config_sha256: str, version: str) -> bool:
+    """Whether ``result`` was made from the same input bytes, resolved config and tool
+    version (then the night is skipped unless ``--force``)."""
+    if not result.is_file():
+        return False
+    try:
+        import h5py
+
+        with h5py.File(result, "r") as f:
+            a = f.attrs
+            return (
+                str(a.get("source_sha256", "")) == source_sha256
+                and str(a.get("config_sha256", "")) == config_sha256
+                and str(a.get("tool_version", "")) == version
+            )
+    except OSError:
+        return False
+
+
+def process_night(
+    run: str, config_path: str, out_dir: str, plots: bool = True, force: bool = False
+) -> NightReport:
+    """Process one night into ``out_dir``; never raises (the report carries the failure).
+
+    A top-level function so that process pools (fork, spawn or forkserver) and Dask workers
+    can run it.
+    """
+    from . import __version__
+    from .api import process_to_files, run_stem
+    from .config import load_config
+    from .summary import night_summary
+
+    t0 = time.perf_counter()
+    path = Path(run)
+    rep = NightReport(run=str(path), status="failed")
+    try:
+        cfg = load_config(config_path)
+        result = Path(out_dir) / f"{run_stem(path)}.h5"
+        if not path.is_file():
+            raise DynoqcError(f"{path}: no such file.")
+        if not force and up_to_date(result, file_sha256(path), cfg.sha256(), __version__):
+            rep.status, rep.result_file = "skipped", str(result)
+            rep.message = "unchanged input, config and tool version; result kept (--force to redo)"
+            rep.lines = [f"{path.name} -> {result}  (skipped: {rep.message})"]
+            return rep
+        outcome = process_to_files(path, cfg, out_dir, plots=plots)
+        res = outcome.result
+        rep.status, rep.result_file = "processed", str(outcome.result_file)
+        rep.outputs = [str(p) for p in outcome.figures]
+        rep.lines = night_summary(outcome)
+        if res is not None:
+            t = res.series["time"].to_numpy()
+            rep.rows = len(t)
+            rep.hours = float((t[-1] - t[0]) / 3600.0) if len(t) > 1 else 0.0
+            rep.flags = {str(k): int(v) for k, v in res.flags["check"].value_counts().items()}
+            rep.verdicts = dict(res.attrs.get("instrument_verdicts", {}))
+    except DynoqcError as exc:
+        rep.exit_code, rep.message = exc.exit_code, str(exc)
+    except KeyboardInterrupt:
+        raise
+    except Exception as exc:  # an unexpected fault in one night must not stop the batch
+        rep.exit_code = 1
+        rep.message = (
+            f"{path}: internal error ({type(exc).__name__}: {exc}). Run again with --debug "
+            "for the traceback and please report it."
+        )
+        if os.environ.get("DYNOQC_DEBUG"):
+            rep.message += "\n" + traceback.format_exc()
+    finally:
+        rep.seconds = time.perf_counter() - t0
+    return rep
+
+
+def make_executor(jobs: int, scheduler: str | None) -> Executor:
+    """A local process pool of ``jobs`` workers, or the executor of a Dask distributed
+    cluster at ``scheduler`` (needs the ``cluster`` extra)."""
+    if scheduler:
+        try:
+            from distributed import Client
+        except ImportError:
+            raise ConfigError(
+                "--scheduler needs Dask distributed: pip install 'dynoqc[cluster]'."
+            ) from None
+        try:
+            client = Client(scheduler)
+        except OSError as exc:
+            raise ConfigError(f"--scheduler {scheduler}: cannot connect ({exc}).") from None
+        return client.get_executor(pure=False)
+    return ProcessPoolExecutor(max_workers=jobs, max_tasks_per_child=20)
+
+
+def run_batch(
+    runs: Sequence[Path],
+    config_path: Path,
+    out_dir: Path,
+    *,
+    plots: bool = True,
+    force: bool = False,
+    jobs: int = 1,
+    scheduler: str | None = None,
+    executor: Executor | None = None,
+) -> Iterator[NightReport]:
+    """Process ``runs``, yielding each night's report as it completes.
+
+    One night at a time in this process when ``jobs`` is 1 and no scheduler or executor is
+    given; otherwise through the executor. Two runs that would write the same result name
+    are refused (the second fails) rather than overwrite each other.
+    """
+    from .api import run_stem
+
+    seen: dict[str, Path] = {}
+    todo: list[Path] = []
+    for run in runs:
+        stem = run_stem(run)
+        if stem in seen:
+            yield NightReport(
+                run=str(run), status="failed", exit_code=2,
+                message=f"{run}: gives the same result name '{stem}.h5' as {seen[stem]}; "
+                "process it into another --out folder.",
+            )
+            continue
+        seen[stem] = run
+        todo.append(run)
+    args = [(str(r), str(config_path), str(out_dir), plots, force) for r in todo]
+    if executor is None and jobs <= 1 and not scheduler:
+        for a in args:
+            yield process_night(*a)
+        return
+    own = executor is None
+    ex = executor if executor is not None else make_executor(jobs, scheduler)
+    try:
+        futures: dict[Future[NightReport], str] = {ex.submit(process_night, *a): a[0] for a in args}
+        for fut in as_completed(futures):
+            try:
+                yield fut.result()
+            except Exception as exc:  # a worker died (e.g. killed): report, go on
+                yield NightReport(run=futures[fut], status="failed", exit_code=1,
+                                  message=f"{futures[fut]}: worker failed ({exc}).")
+    finally:
+        if own:
+            ex.shutdown(wait=True, cancel_futures=True)
+
+
+def write_index(reports: Sequence[NightReport], out_dir: Path) -> tuple[Path, Path]:
+    """The batch index, ``dynoqc_index.csv`` and ``.json`` in ``out_dir``: one row per night
+    with its status, result file, duration, flags counted per check and instrument
+    verdicts. Written atomically (temporary name, then rename)."""
+    out_dir.mkdir(parents=True, exist_ok=True)
+    rows = [asdict(r) for r in sorted(reports, key=lambda r: r.run)]
+    json_path = out_dir / f"{INDEX_NAME}.json"
+    csv_path = out_dir / f"{INDEX_NAME}.csv"
+    _atomic_text(json_path, lambda fh: json.dump(rows, fh, indent=2))
+
+    def write_csv(fh) -> None:  # noqa: ANN001 - a text file handle
+        w = csv.writer(fh)
+        w.writerow(["run", "status", "exit_code", "result_file", "rows", "hours", "flags",
+                    "verdicts", "message", "seconds"])
+        for r in rows:
+            w.writerow([
+                r["run"], r["status"], r["exit_code"], r["result_file"], r["rows"],
+                f"{r['hours']:.3f}",
+                "; ".join(f"{k}={v}" for k, v in sorted(r["flags"].items())),
+                "; ".join(f"{k}: {v}" for k, v in r["verdicts"].items()),
+                r["message"].splitlines()[0] if r["message"] else "",
+                f"{r['seconds']:.2f}",
+            ])
+
+    _atomic_text(csv_path, write_csv)
+    return csv_path, json_path
+
+
+def _atomic_text(path: Path, write: Callable) -> None:
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+    try:
+        with open(tmp, "w", encoding="utf-8", newline="") as fh:
+            write(fh)
+        os.replace(tmp, path)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
