@@ -1,0 +1,304 @@
+"""The checks stage: alignment, steady points, residuals, disagreement, drift, attribution.
+
+Between balance and report. Pure functions over arrays; every threshold is a named default in
+:mod:`pipeline.checks.settings` that the ``[checks]`` config table can override, and the full
+set used is returned in :attr:`ChecksResult.attrs` for the result file.
+
+- :func:`pipeline.checks.alignment.align_analyzers`: analyzer transport delay (run first, on
+  the ingest frame, before balance).
+- :func:`run_checks`: everything else, on the aligned frame and the balance output.
+- :func:`summary_lines`: console lines, one per instrument, plus flag counts.
+"""
+
+from __future__ import annotations
+
+from collections import Counter
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ..data import make_flags
+from ..quantities import GASES
+from . import attribution as attr_mod
+from .alignment import align_analyzers
+from .disagreement import disagreement_intervals, merge_events
+from .drift import DriftResult, block_samples, detect_drift, drift_table, refine_step_onset
+from .intervals import format_elapsed
+from .quality import out_of_range_flags, time_irregular_flags
+from .residuals import ESTIMATE_COLUMNS, carbon_fuel_flow, compute_residuals, relative_residual
+from .settings import resolve_settings, thresholds_used
+from .steady import steady_mask, steady_points_table
+
+__all__ = ["ChecksResult", "align_analyzers", "run_checks", "summary_lines"]
+
+#: Instruments that always get a verdict line (others only when flagged).
+CORE_INSTRUMENTS = ("co2", "o2", "air_mass_flow", "fuel_mass_flow")
+
+_SEVERITY_RANK = {"info": 0, "warning": 1, "error": 2}
+
+
+@dataclass
+class ChecksResult:
+    """Output of :func:`run_checks` (see the module docstring of each part).
+
+    series: per-row arrays for ``/timeseries/`` (``steady``, ``residual_*``,
+    ``fuel_mass_flow_carbon``, ``residual_fuel_flow``); series_attrs: ``units`` and
+    ``long_name`` per series; flags: FLAG_COLUMNS table; tables: ``steady_points`` and
+    ``drift``; attrs: every threshold used plus method notes; verdicts: (instrument, verdict).
+    """
+
+    series: dict[str, np.ndarray]
+    series_attrs: dict[str, dict[str, Any]]
+    flags: pd.DataFrame
+    tables: dict[str, pd.DataFrame] = field(default_factory=dict)
+    attrs: dict[str, Any] = field(default_factory=dict)
+    verdicts: list[tuple[str, str]] = field(default_factory=list)
+
+
+def _column(df: pd.DataFrame, name: str, n: int, default: float = np.nan) -> np.ndarray:
+    return df[name].to_numpy(dtype=float) if name in df else np.full(n, default)
+
+
+def _series_attrs(residual_names: list[str]) -> dict[str, dict[str, Any]]:
+    attrs: dict[str, dict[str, Any]] = {
+        "steady": {"units": "1", "long_name": "1 where the engine holds a steady operating point"},
+        "fuel_mass_flow_carbon": {
+            "units": "kg/h",
+            "long_name": "fuel mass flow implied by air flow and exhaust carbon "
+            "(fuel_mass_flow * lambda_flow / lambda_carbon)",
+        },
+        "residual_fuel_flow": {
+            "units": "1",
+            "long_name": "fuel_mass_flow_carbon / fuel_mass_flow - 1",
+        },
+    }
+    for name in residual_names:
+        a, b = name.removeprefix("residual_").split("_")
+        attrs[name] = {"units": "1", "long_name": f"lambda_{a} / lambda_{b} - 1"}
+    return attrs
+
+
+def _judged_mask(derived: pd.DataFrame, n: int) -> np.ndarray:
+    valid = _column(derived, "valid", n, 1.0)
+    sampling = _column(derived, "sampling", n, 1.0)
+    return (valid > 0.5) & (sampling > 0.5)
+
+
+def _typical_lambda(lam: np.ndarray, mask: np.ndarray) -> float:
+    x = lam[mask & np.isfinite(lam)]
+    return float(np.median(x)) if x.size else float("nan")
+
+
+def _disagreement_flags(
+    time: np.ndarray,
+    residuals: dict[str, np.ndarray],
+    judged: np.ndarray,
+    noise: dict[str, float],
+    lam: float,
+    s: dict[str, Any],
+) -> list[dict[str, Any]]:
+    spans: list[tuple[float, float]] = []
+    for name, r in residuals.items():
+        tol = (
+            s["disagreement_tolerance_sensor"] if "sensor" in name else s["disagreement_tolerance"]
+        )
+        for i0, i1 in disagreement_intervals(time, r, judged, tol, s):
+            spans.append((float(time[i0]), float(time[i1])))
+    rows = []
+    for a, b in merge_events(spans):
+        inside = judged & (time >= a) & (time <= b)
+        shifts = {
+            n: float(np.nanmedian(r[inside])) if inside.any() else np.nan
+            for n, r in residuals.items()
+        }
+        att = attr_mod.attribute(shifts, noise, lam, s["attribution_min_explained"])
+        worst = max((abs(v) for v in shifts.values() if np.isfinite(v)), default=0.0)
+        rows.append(
+            {
+                "start_s": a,
+                "end_s": b,
+                "check": "lambda_disagreement",
+                "suspect": att.suspect,
+                "severity": "error" if worst > 2.0 * s["disagreement_tolerance"] else "warning",
+                "value": 100.0 * att.amount,
+                "message": f"Lambda estimates disagree from {format_elapsed(a)} to "
+                f"{format_elapsed(b)} (worst median residual {100 * worst:.1f} %): "
+                + attr_mod.describe(att),
+            }
+        )
+    return rows
+
+
+def _drift_flags(
+    blocks: pd.DataFrame,
+    results: list[DriftResult],
+    noise: dict[str, float],
+    lam: float,
+    s: dict[str, Any],
+) -> list[dict[str, Any]]:
+    detected = [r for r in results if r.detected]
+    events = merge_events([(r.onset_s, r.end_s) for r in detected])
+    rows = []
+    for a, b in events:
+        members = [r for r in detected if a <= r.onset_s <= b]
+        lead = max(members, key=lambda r: r.significance)
+        t = blocks["t_mid"].to_numpy()
+        inside = (t >= lead.onset_s) & (t <= b)
+        shifts = {}
+        for r in results:
+            if np.isfinite(r.baseline) and inside.any():
+                shifts[r.residual] = float(
+                    np.nanmedian(blocks[r.residual].to_numpy()[inside]) - r.baseline
+                )
+        att = attr_mod.attribute(shifts, noise, lam, s["attribution_min_explained"])
+        hours = (b - lead.onset_s) / 3600.0
+        rows.append(
+            {
+                "start_s": lead.onset_s,
+                "end_s": b,
+                "check": "drift",
+                "suspect": att.suspect,
+                "severity": "warning",
+                "value": 100.0 * att.amount,
+                "message": f"{lead.kind.capitalize()} drift from {format_elapsed(lead.onset_s)} "
+                f"for {hours:.1f} h (rate {100 * lead.rate_per_h:+.2f} %/h on "
+                f"{lead.residual}): " + attr_mod.describe(att),
+            }
+        )
+    return rows
+
+
+def run_checks(
+    frame: pd.DataFrame, derived: pd.DataFrame, settings: dict, *, has_sensor: bool
+) -> ChecksResult:
+    """Steady points, residuals, disagreement, drift, attribution and data-quality flags.
+
+    Parameters
+    ----------
+    frame: the aligned ingest frame (``time`` [s] and canonical channels).
+    derived: balance output on the same rows: ``lambda_flow``, ``lambda_carbon``,
+        ``lambda_oxygen``, ``valid`` and ``sampling`` (1/0).
+    settings: the ``[checks]`` table (unknown keys raise ConfigError), optionally with
+        ``ranges`` = {quantity: full scale in canonical units}.
+    has_sensor: whether ``frame`` holds a logged ``lambda_sensor``.
+    """
+    s = resolve_settings(settings)
+    time = frame["time"].to_numpy(dtype=float)
+    n = len(time)
+    estimates = {k: _column(derived, ESTIMATE_COLUMNS[k], n) for k in ("flow", "carbon", "oxygen")}
+    if has_sensor and "lambda_sensor" in frame:
+        estimates["sensor"] = frame["lambda_sensor"].to_numpy(dtype=float)
+    residuals = compute_residuals(estimates)
+    fuel = _column(frame, "fuel_mass_flow", n)
+    fuel_c = carbon_fuel_flow(fuel, estimates["flow"], estimates["carbon"])
+    judged = _judged_mask(derived, n)
+    steady, runs = steady_mask(frame, s)
+    judged_steady = steady & judged
+
+    series: dict[str, np.ndarray] = {"steady": steady.astype(np.int8)}
+    series.update(residuals)
+    series["fuel_mass_flow_carbon"] = fuel_c
+    series["residual_fuel_flow"] = relative_residual(fuel_c, fuel)
+
+    table_cols = {
+        q: _column(frame, q, n)
+        for q in ("speed", "torque", "fuel_mass_flow", "air_mass_flow")
+        if q in frame
+    }
+    table_cols.update({ESTIMATE_COLUMNS[k]: v for k, v in estimates.items()})
+    table_cols.update(residuals)
+    steady_points = steady_points_table(time, runs, table_cols, judged)
+
+    lam = _typical_lambda(estimates["flow"], judged_steady)
+    blocks = block_samples(time, runs, judged, residuals, s)
+    results = [detect_drift(blocks, name, s) for name in residuals]
+    for res in results:
+        if res.detected and res.kind == "step":
+            res.onset_s = refine_step_onset(time, residuals[res.residual], judged_steady, res)
+    noise = {r.residual: (r.noise if np.isfinite(r.noise) else 0.01) for r in results}
+
+    rows: list[dict[str, Any]] = []
+    rows += _disagreement_flags(time, residuals, judged_steady, noise, lam, s)
+    rows += _drift_flags(blocks, results, noise, lam, s)
+    rows += out_of_range_flags(frame, s["ranges"], s)
+    rows += time_irregular_flags(time, s)
+    flags = make_flags(rows)
+    if len(flags):
+        flags = flags.sort_values(["start_s", "check"], kind="stable").reset_index(drop=True)
+
+    attrs: dict[str, Any] = thresholds_used(s)
+    attrs["drift_statistic"] = "two-sided CUSUM on steady-block medians, MAD noise scale"
+    attrs["attribution_lambda_typical"] = lam
+    attrs["steady_points"] = int(len(runs))
+    attrs["drift_blocks"] = int(len(blocks))
+    instruments = list(CORE_INSTRUMENTS)
+    if "sensor" in estimates:
+        instruments.append("lambda_sensor")
+    instruments += [g for g in GASES if g in frame and g not in instruments]
+    return ChecksResult(
+        series=series,
+        series_attrs=_series_attrs(list(residuals)),
+        flags=flags,
+        tables={"steady_points": steady_points, "drift": drift_table(results)},
+        attrs=attrs,
+        verdicts=instrument_verdicts(flags, instruments),
+    )
+
+
+def _flag_phrase(row: pd.Series, instrument: str) -> str:
+    start, end = float(row["start_s"]), float(row["end_s"])
+    hours = (end - start) / 3600.0
+    value = float(row["value"])
+    shared = "|" in str(row["suspect"])
+    if row["check"] in ("drift", "lambda_disagreement"):
+        word = "drift" if row["check"] == "drift" else "disagreement"
+        if instrument == "co2":
+            err = 100 * abs(value / 100) / (1 + value / 100)
+            size = f"reads {err:.1f} % {'low' if value > 0 else 'high'}"
+        else:
+            size = f"{value:+.1f} % in lambda"
+        who = ", shared suspect" if shared else ", suspect"
+        return f"{word} {size} from {format_elapsed(start)} ({hours:.1f} h){who}"
+    return f"{row['check']} from {format_elapsed(start)}"
+
+
+def instrument_verdicts(flags: pd.DataFrame, instruments: list[str]) -> list[tuple[str, str]]:
+    """One verdict per instrument: "ok" or its flags, most severe first."""
+    out = []
+    names = list(instruments)
+    for sus in flags["suspect"] if len(flags) else []:
+        for part in str(sus).split("|"):
+            if part and part != "time" and part not in names:
+                names.append(part)
+    for name in names:
+        mine = (
+            flags[flags["suspect"].astype(str).str.split("|").apply(lambda p, n=name: n in p)]
+            if len(flags)
+            else flags
+        )
+        if not len(mine):
+            out.append((name, "ok"))
+            continue
+        rank = mine["severity"].map(_SEVERITY_RANK).fillna(0)
+        mine = mine.assign(_r=rank).sort_values(["_r", "start_s"], ascending=[False, True])
+        counts = Counter(mine["check"])
+        first = _flag_phrase(mine.iloc[0], name)
+        extra = sum(counts.values()) - 1
+        out.append(
+            (name, first + (f" (+{extra} more flag{'s' if extra > 1 else ''})" if extra else ""))
+        )
+    return out
+
+
+def summary_lines(result: ChecksResult) -> list[str]:
+    """Console summary: one line per instrument with its verdict, then the flags counted."""
+    width = max((len(n) for n, _ in result.verdicts), default=0)
+    lines = [f"{name:<{width}}  {verdict}" for name, verdict in result.verdicts]
+    if len(result.flags):
+        counts = Counter(result.flags["check"])
+        lines.append("flags: " + ", ".join(f"{c} {k}" for k, c in sorted(counts.items())))
+    else:
+        lines.append("flags: none")
+    return lines

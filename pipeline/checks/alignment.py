@@ -1,0 +1,249 @@
+"""Time alignment of the analyzer channels onto the flow signals.
+
+Analyzer readings arrive later than the flow-meter readings: sample-line transport plus the
+analyzer's own response, the t50 of 40 CFR 1065.308 (REFERENCES 1.12, which also says to shift
+each concentration back by its t50 before combining it with flows). The delay is estimated from
+the night's own transients: the exhaust CO2 rises and O2 falls with the fuel/air ratio
+``fuel_mass_flow / air_mass_flow``, so the cross-correlation of the time derivatives of the
+fuel/air ratio and of each analyzer signal peaks at the delay. Derivatives (of lightly smoothed
+signals) are used because they are zero at steady points and carry the timing of the changes,
+not the operating-point levels (common practice in signal alignment).
+
+Quality is the normalised peak height |rho| (the correlation coefficient of the two
+derivative series at the best lag, 0..1). The night's estimate is used when it holds at least
+``alignment_min_transients`` transients and the quality reaches ``alignment_min_quality``;
+otherwise the configured delay (``[sampling] analyzer_delay_s``) or the documented default.
+"""
+
+from __future__ import annotations
+
+import json
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import signal
+
+from .intervals import mask_runs, median_step
+from .settings import resolve_settings
+
+#: Channels whose estimates set the common delay; the others get their own delay only when
+#: their own cross-correlation is good enough.
+PRIMARY_CHANNELS = ("co2", "o2")
+
+
+def _to_grid(time: np.ndarray, x: np.ndarray, grid: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Linear interpolation onto ``grid``: values, and a mask of the valid grid points."""
+    ok = np.isfinite(x) & np.isfinite(time)
+    if ok.sum() < 2:
+        return np.zeros_like(grid), np.zeros(grid.shape, dtype=bool)
+    values = np.interp(grid, time[ok], x[ok])
+    bad = np.interp(grid, time, (~ok).astype(float)) > 0.0
+    return values, ~bad
+
+
+def _smoothed_derivative(
+    x: np.ndarray, valid: np.ndarray, step: float, smooth_s: float
+) -> np.ndarray:
+    """Derivative of a moving average; zero where the window touches invalid samples."""
+    n = max(1, int(round(smooth_s / step)))
+    kernel = np.ones(n) / n
+    xs = np.convolve(np.where(valid, x, 0.0), kernel, mode="same")
+    cover = np.convolve(valid.astype(float), kernel, mode="same")
+    d = np.gradient(xs, step)
+    good = cover > 1.0 - 1e-9
+    good[1:] &= good[:-1]
+    good[:-1] &= good[1:]
+    return np.where(good, d, 0.0)
+
+
+def cross_correlation_delay(
+    reference: np.ndarray, delayed: np.ndarray, step: float, max_delay_s: float
+) -> tuple[float, float]:
+    """Delay [s] of ``delayed`` behind ``reference`` and the normalised peak height |rho|.
+
+    Both inputs are uniformly sampled derivative series of equal length. The lag search covers
+    0..``max_delay_s``; the peak of |rho| is refined below one step by a parabola through the
+    three points around it (common practice). A peak on the search edge gets quality 0.
+    """
+    norm = np.sqrt(np.sum(reference**2) * np.sum(delayed**2))
+    if not np.isfinite(norm) or norm == 0.0:
+        return float("nan"), 0.0
+    corr = signal.correlate(delayed, reference, mode="full", method="fft") / norm
+    lags = signal.correlation_lags(delayed.size, reference.size, mode="full")
+    max_lag = int(np.ceil(max_delay_s / step))
+    window = (lags >= 0) & (lags <= max_lag)
+    c = np.abs(corr[window])
+    lag = lags[window]
+    i = int(np.argmax(c))
+    quality = float(c[i])
+    if i == c.size - 1:  # on the search edge: the true peak may lie beyond it
+        return float(lag[i] * step), 0.0
+    frac = 0.0
+    if i > 0:
+        y0, y1, y2 = c[i - 1], c[i], c[i + 1]
+        denom = y0 - 2.0 * y1 + y2
+        if denom < 0:
+            frac = float(np.clip(0.5 * (y0 - y2) / denom, -0.5, 0.5))
+    return float((lag[i] + frac) * step), quality
+
+
+def count_transients(ratio: np.ndarray, valid: np.ndarray, step: float, settings: dict) -> int:
+    """Number of separate transients of the fuel/air ratio (see module docstring)."""
+    med = np.median(ratio[valid]) if valid.any() else 0.0
+    if not np.isfinite(med) or med <= 0:
+        return 0
+    d = _smoothed_derivative(ratio, valid, step, settings["alignment_transient_window_s"])
+    moving = (
+        np.abs(d) * settings["alignment_transient_window_s"]
+        > settings["alignment_transient_fraction"] * med
+    )
+    runs = mask_runs(moving)
+    if len(runs) == 0:
+        return 0
+    # transients closer than 10 s are one transient
+    gaps = runs[1:, 0] - runs[:-1, 1]
+    return int(1 + np.sum(gaps * step > 10.0))
+
+
+def estimate_delays(
+    frame: pd.DataFrame, gas_columns: list[str], settings: dict
+) -> tuple[dict[str, float], dict[str, float], int]:
+    """Per-channel delay [s] and quality from the fuel/air-ratio cross-correlation.
+
+    For a ramp-like change through an analyzer with a first-order response, the peak of the
+    derivative cross-correlation sits at the delay plus tau ln 2, i.e. at the t50 of
+    40 CFR 1065.308 (REFERENCES 1.12) [D].
+
+    Returns ``(delays, qualities, transients)``; channels that cannot be estimated get NaN.
+    """
+    time = frame["time"].to_numpy(dtype=float)
+    delays = {c: float("nan") for c in gas_columns}
+    quality = {c: 0.0 for c in gas_columns}
+    if not {"fuel_mass_flow", "air_mass_flow"} <= set(frame.columns) or len(time) < 10:
+        return delays, quality, 0
+    step = max(median_step(time), settings["alignment_grid_s"])
+    t_ok = time[np.isfinite(time)]
+    grid = np.arange(t_ok.min(), t_ok.max(), step)
+    if grid.size < 10:
+        return delays, quality, 0
+    fuel = frame["fuel_mass_flow"].to_numpy(dtype=float)
+    air = frame["air_mass_flow"].to_numpy(dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = np.where(air > 0, fuel / air, np.nan)
+    ratio_g, ratio_ok = _to_grid(time, ratio, grid)
+    if "analyzer_mode" in frame:
+        mode_g, _ = _to_grid(time, frame["analyzer_mode"].to_numpy(dtype=float), grid)
+        sampling = np.abs(mode_g) < 0.5
+    else:
+        sampling = np.ones(grid.shape, dtype=bool)
+    transients = count_transients(ratio_g, ratio_ok, step, settings)
+    d_ref = _smoothed_derivative(ratio_g, ratio_ok, step, settings["alignment_smooth_s"])
+    for col in gas_columns:
+        if col not in frame:
+            continue
+        x_g, x_ok = _to_grid(time, frame[col].to_numpy(dtype=float), grid)
+        d_x = _smoothed_derivative(x_g, x_ok & sampling, step, settings["alignment_smooth_s"])
+        # the reference counts only where the analyzer samples, so zero/span periods add nothing
+        d_r = np.where(d_x != 0.0, d_ref, 0.0)
+        delays[col], quality[col] = cross_correlation_delay(
+            d_r, d_x, step, settings["alignment_max_delay_s"]
+        )
+    return delays, quality, transients
+
+
+def shift_earlier(time: np.ndarray, values: np.ndarray, delay_s: float) -> np.ndarray:
+    """Value at ``t`` taken from ``t + delay_s`` by linear interpolation; the tail becomes NaN."""
+    time = np.asarray(time, dtype=float)
+    values = np.asarray(values, dtype=float)
+    if delay_s == 0.0:
+        return values.copy()
+    if np.all(np.diff(time) > 0):
+        return np.interp(time + delay_s, time, values, left=np.nan, right=np.nan)
+    # time not increasing (resets, duplicates): shift by whole samples of the median step
+    k = int(round(delay_s / median_step(time)))
+    out = np.full(values.shape, np.nan)
+    if k < values.size:
+        out[: values.size - k] = values[k:]
+    return out
+
+
+def align_analyzers(
+    frame: pd.DataFrame,
+    gas_columns: list[str],
+    settings: dict,
+    fallback_delay_s: float | None,
+) -> tuple[pd.DataFrame, dict[str, Any]]:
+    """Estimate the analyzer transport delay and shift the gas channels earlier by it.
+
+    Parameters
+    ----------
+    frame: ingest output, float64 ``time`` [s] and canonical columns (fuel_mass_flow,
+        air_mass_flow [kg/h], gases [mol/mol], ...).
+    gas_columns: the analyzer channels to shift (``lambda_sensor`` is fast and never shifted).
+    settings: the ``[checks]`` table (alignment_* keys override the defaults).
+    fallback_delay_s: ``[sampling] analyzer_delay_s`` when configured, else None (then
+        ``default_analyzer_delay_s`` is the fallback).
+
+    Returns
+    -------
+    The shifted frame (a copy) and attributes for the ``/alignment`` group:
+    ``analyzer_delay_s``, ``method`` ("cross-correlation" | "configured" | "default"),
+    ``quality`` (normalised peak height 0..1), ``transients``, ``per_channel_delay_s`` and
+    ``per_channel_quality`` (JSON text), ``reference`` and the thresholds used.
+
+    Source: REFERENCES 1.12 (t50, 40 CFR 1065.308: shift each analyzer signal back by its delay).
+    """
+    s = resolve_settings(settings)
+    gas_columns = [c for c in gas_columns if c in frame and c != "lambda_sensor"]
+    delays, quality, transients = estimate_delays(frame, gas_columns, s)
+    min_q = s["alignment_min_quality"]
+    good = {c: d for c, d in delays.items() if np.isfinite(d) and quality[c] >= min_q}
+    primary = [c for c in PRIMARY_CHANNELS if c in good] or list(good)
+    enough = transients >= s["alignment_min_transients"]
+    if enough and primary:
+        w = np.array([quality[c] for c in primary])
+        delay = float(np.sum(w * np.array([good[c] for c in primary])) / np.sum(w))
+        q = float(np.max(w))
+        method = "cross-correlation"
+        # a channel keeps its own delay only when its own peak is nearly as clear as the
+        # common one; weak channels (CO, THC on a lean engine) take the common delay
+        own = {c: d for c, d in good.items() if quality[c] >= 0.8 * q}
+        per_channel = {c: own.get(c, delay) for c in gas_columns}
+    else:
+        if fallback_delay_s is not None:
+            delay, method = float(fallback_delay_s), "configured"
+        else:
+            delay, method = float(s["default_analyzer_delay_s"]), "default"
+        q = float(max(quality.values(), default=0.0))
+        per_channel = {c: delay for c in gas_columns}
+    out = frame.copy()
+    time = frame["time"].to_numpy(dtype=float)
+    for c in gas_columns:
+        out[c] = shift_earlier(time, frame[c].to_numpy(dtype=float), per_channel[c])
+    attrs: dict[str, Any] = {
+        "analyzer_delay_s": delay,
+        "method": method,
+        "quality": q,
+        "transients": int(transients),
+        "reference": "d/dt(fuel_mass_flow/air_mass_flow), cross-correlation of derivatives",
+        "per_channel_delay_s": json.dumps({c: round(v, 3) for c, v in per_channel.items()}),
+        "per_channel_estimate_s": json.dumps(
+            {c: (round(v, 3) if np.isfinite(v) else None) for c, v in delays.items()}
+        ),
+        "per_channel_quality": json.dumps({c: round(v, 4) for c, v in quality.items()}),
+        "fallback_delay_s": float(fallback_delay_s)
+        if fallback_delay_s is not None
+        else float(s["default_analyzer_delay_s"]),
+    }
+    for key in (
+        "alignment_max_delay_s",
+        "alignment_grid_s",
+        "alignment_smooth_s",
+        "alignment_min_transients",
+        "alignment_transient_fraction",
+        "alignment_min_quality",
+        "alignment_transient_window_s",
+    ):
+        attrs[key] = float(s[key])
+    return out, attrs

@@ -1,0 +1,135 @@
+"""Data-quality flags: ``out_of_range`` readings and ``time_irregular`` time columns."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ..quantities import GASES
+from .intervals import mask_runs, median_step, merge_runs
+
+
+def _percent(x: float) -> str:
+    return f"{100.0 * x:.3g} %"
+
+
+def out_of_range_flags(
+    frame: pd.DataFrame, ranges: dict[str, float], settings: dict
+) -> list[dict[str, Any]]:
+    """Negative gas concentrations and readings above the configured full-scale range.
+
+    A concentration is negative when it is below -(``out_of_range_negative_fraction`` of its
+    range) or, with no range, below -``out_of_range_negative_abs`` (common practice: noise around
+    a zero reading is not a fault), and never closer to zero than six times the channel's
+    own noise after the rolling median. A reading above ``out_of_range_high_fraction`` of the range
+    is out of range (40 CFR 1065.550 range rule, REFERENCES 1.10 [M]). Both tests use a
+    centred rolling median over ``out_of_range_smooth_s``. Stretches closer than
+    ``out_of_range_merge_gap_s`` are merged; one flag per stretch.
+    """
+    time = frame["time"].to_numpy(dtype=float)
+    n_smooth = max(1, int(round(settings["out_of_range_smooth_s"] / median_step(time))))
+    rows: list[dict[str, Any]] = []
+    for col in frame.columns:
+        if col == "time":
+            continue
+        is_gas = col in GASES
+        full = ranges.get(col)
+        if not is_gas and full is None:
+            continue
+        raw = frame[col].to_numpy(dtype=float)
+        # a rolling median, so noise around a zero reading is not taken for a negative reading
+        x = pd.Series(raw).rolling(n_smooth, center=True, min_periods=1).median().to_numpy()
+        checks = []
+        if is_gas:
+            tol = (
+                settings["out_of_range_negative_fraction"] * full
+                if full
+                else settings["out_of_range_negative_abs"]
+            )
+            # never tighter than 6 x the noise left after the rolling median (sample noise
+            # from successive differences, 1.4826 MAD / sqrt(2); the median of n normal
+            # samples scatters by 1.2533 sigma / sqrt(n))
+            d = np.diff(raw[np.isfinite(raw)])
+            if d.size:
+                noise = 1.4826 * float(np.median(np.abs(d - np.median(d)))) / np.sqrt(2.0)
+                tol = max(tol, 6.0 * 1.2533 * noise / np.sqrt(n_smooth))
+            with np.errstate(invalid="ignore"):
+                checks.append(("negative", x < -tol))
+        if full:
+            with np.errstate(invalid="ignore"):
+                checks.append(("above range", x > settings["out_of_range_high_fraction"] * full))
+        for what, mask in checks:
+            runs = merge_runs(mask_runs(mask), time, settings["out_of_range_merge_gap_s"])
+            for i0, i1 in runs:
+                seg = x[i0 : i1 + 1]
+                worst = float(np.nanmin(seg) if what == "negative" else np.nanmax(seg))
+                if full:
+                    value = 100.0 * worst / full
+                    detail = f"{value:+.1f} % of its {full:g} range"
+                else:
+                    value = worst
+                    detail = f"{worst:.3g} mol/mol" if is_gas else f"{worst:.4g}"
+                rows.append(
+                    {
+                        "start_s": time[i0],
+                        "end_s": time[i1],
+                        "check": "out_of_range",
+                        "suspect": col,
+                        "severity": "warning",
+                        "value": value,
+                        "message": f"{col} reads {what} ({detail} at worst, "
+                        f"{int(np.sum(mask[i0 : i1 + 1]))} samples).",
+                    }
+                )
+    return rows
+
+
+def time_irregular_flags(time: np.ndarray, settings: dict) -> list[dict[str, Any]]:
+    """Duplicate time stamps, backward resets and irregular steps of the time column.
+
+    A step is irregular when it exceeds ``time_step_factor`` x the median step but stays below
+    ``time_gap_factor`` x (longer steps are data gaps, flagged by the pipeline). Consecutive
+    irregular samples within ``time_gap_factor`` median steps are one flag (common practice).
+    """
+    t = np.asarray(time, dtype=float)
+    if t.size < 3:
+        return []
+    dt = np.diff(t)
+    step = median_step(t)
+    kinds = {
+        "duplicate time stamps": dt == 0,
+        "time runs backwards (reset)": dt < 0,
+        "irregular sample steps": (dt > settings["time_step_factor"] * step)
+        & (dt <= settings["time_gap_factor"] * step),
+    }
+    rows: list[dict[str, Any]] = []
+    for what, mask in kinds.items():
+        runs = mask_runs(mask)
+        if not len(runs):
+            continue
+        # merge in sample-index space: runs closer than time_gap_factor samples
+        gaps = runs[1:, 0] - runs[:-1, 1]
+        new = np.concatenate(([True], gaps > settings["time_gap_factor"]))
+        gid = np.cumsum(new) - 1
+        starts = pd.Series(runs[:, 0]).groupby(gid).min().to_numpy()
+        ends = pd.Series(runs[:, 1]).groupby(gid).max().to_numpy()
+        for i0, i1 in zip(starts, ends, strict=True):
+            count = int(np.sum(mask[i0 : i1 + 1]))
+            worst = float(
+                np.min(dt[i0 : i1 + 1]) if "backwards" in what else np.max(dt[i0 : i1 + 1])
+            )
+            rows.append(
+                {
+                    "start_s": float(min(t[i0], t[i1 + 1])),
+                    "end_s": float(max(t[i0], t[i1 + 1])),
+                    "check": "time_irregular",
+                    "suspect": "time",
+                    "severity": "error" if "backwards" in what else "warning",
+                    "value": worst,
+                    "message": f"{what}: {count} step(s), worst {worst:+.3g} s "
+                    f"(median step {step:.3g} s).",
+                }
+            )
+    return rows
