@@ -70,6 +70,12 @@ def _sorted_flags(parts: list[pd.DataFrame]) -> pd.DataFrame:
     return flags.sort_values(["start_s", "check"], kind="stable").reset_index(drop=True)
 
 
+def _verdict_lines(verdicts: list[tuple[str, str]]) -> list[str]:
+    """One console line per instrument: its canonical name and the verdict."""
+    width = max((len(name) for name, _ in verdicts), default=0)
+    return [f"{name:<{width}}  {verdict}" for name, verdict in verdicts]
+
+
 def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessResult:
     """Process one logged night: ingest -> align -> balance -> checks. No files are written."""
     run_path = Path(run_path)
@@ -87,6 +93,7 @@ def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessRes
         bal.derived,
         {**settings, "ranges": {n: c.range for n, c in cfg.channels.items() if c.range}},
         has_sensor="lambda_sensor" in frame,
+        start_time=run.meta.start_time,
     )
 
     # Gaps are found in the data as logged (before the analyzer shift), so a dropout of the
@@ -158,6 +165,7 @@ def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessRes
         "input_metadata": dict(meta.metadata),
         "balance": dict(bal.attrs),
         "checks_settings": dict(checked.attrs),
+        "instrument_verdicts": dict(checked.verdicts),
     }
     if meta.start_time is not None:
         attrs["start_time_utc"] = (
@@ -170,7 +178,7 @@ def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessRes
         tables=tables,
         group_attrs={"alignment": alignment},
         attrs=attrs,
-        summary=list(checked.summary) if hasattr(checked, "summary") else [],
+        summary=_verdict_lines(checked.verdicts),
     )
 
 

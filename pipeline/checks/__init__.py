@@ -13,7 +13,9 @@ set used is returned in :attr:`ChecksResult.attrs` for the result file.
 from __future__ import annotations
 
 from collections import Counter
+from collections.abc import Callable
 from dataclasses import dataclass, field
+from datetime import datetime
 from typing import Any
 
 import numpy as np
@@ -25,7 +27,7 @@ from . import attribution as attr_mod
 from .alignment import align_analyzers
 from .disagreement import disagreement_intervals, merge_events
 from .drift import DriftResult, block_samples, detect_drift, drift_table, refine_step_onset
-from .intervals import format_elapsed
+from .intervals import format_elapsed, make_clock
 from .quality import out_of_range_flags, time_irregular_flags
 from .residuals import ESTIMATE_COLUMNS, carbon_fuel_flow, compute_residuals, relative_residual
 from .settings import resolve_settings, thresholds_used
@@ -98,6 +100,7 @@ def _disagreement_flags(
     noise: dict[str, float],
     lam: float,
     s: dict[str, Any],
+    clock: Callable[[float], str] = format_elapsed,
 ) -> list[dict[str, Any]]:
     spans: list[tuple[float, float]] = []
     for name, r in residuals.items():
@@ -123,8 +126,8 @@ def _disagreement_flags(
                 "suspect": att.suspect,
                 "severity": "error" if worst > 2.0 * s["disagreement_tolerance"] else "warning",
                 "value": 100.0 * att.amount,
-                "message": f"Lambda estimates disagree from {format_elapsed(a)} to "
-                f"{format_elapsed(b)} (worst median residual {100 * worst:.1f} %): "
+                "message": f"Lambda estimates disagree from {clock(a)} to "
+                f"{clock(b)} (worst median residual {100 * worst:.1f} %): "
                 + attr_mod.describe(att),
             }
         )
@@ -137,6 +140,7 @@ def _drift_flags(
     noise: dict[str, float],
     lam: float,
     s: dict[str, Any],
+    clock: Callable[[float], str] = format_elapsed,
 ) -> list[dict[str, Any]]:
     detected = [r for r in results if r.detected]
     events = merge_events([(r.onset_s, r.end_s) for r in detected])
@@ -162,7 +166,7 @@ def _drift_flags(
                 "suspect": att.suspect,
                 "severity": "warning",
                 "value": 100.0 * att.amount,
-                "message": f"{lead.kind.capitalize()} drift from {format_elapsed(lead.onset_s)} "
+                "message": f"{lead.kind.capitalize()} drift from {clock(lead.onset_s)} "
                 f"for {hours:.1f} h (rate {100 * lead.rate_per_h:+.2f} %/h on "
                 f"{lead.residual}): " + attr_mod.describe(att),
             }
@@ -171,7 +175,12 @@ def _drift_flags(
 
 
 def run_checks(
-    frame: pd.DataFrame, derived: pd.DataFrame, settings: dict, *, has_sensor: bool
+    frame: pd.DataFrame,
+    derived: pd.DataFrame,
+    settings: dict,
+    *,
+    has_sensor: bool,
+    start_time: datetime | None = None,
 ) -> ChecksResult:
     """Steady points, residuals, disagreement, drift, attribution and data-quality flags.
 
@@ -183,6 +192,7 @@ def run_checks(
     settings: the ``[checks]`` table (unknown keys raise ConfigError), optionally with
         ``ranges`` = {quantity: full scale in canonical units}.
     has_sensor: whether ``frame`` holds a logged ``lambda_sensor``.
+    start_time: absolute start of the run (UTC); messages then give clock times.
     """
     s = resolve_settings(settings)
     time = frame["time"].to_numpy(dtype=float)
@@ -220,8 +230,9 @@ def run_checks(
     noise = {r.residual: (r.noise if np.isfinite(r.noise) else 0.01) for r in results}
 
     rows: list[dict[str, Any]] = []
-    rows += _disagreement_flags(time, residuals, judged_steady, noise, lam, s)
-    rows += _drift_flags(blocks, results, noise, lam, s)
+    clock = make_clock(start_time)
+    rows += _disagreement_flags(time, residuals, judged_steady, noise, lam, s, clock)
+    rows += _drift_flags(blocks, results, noise, lam, s, clock)
     rows += out_of_range_flags(frame, s["ranges"], s)
     rows += time_irregular_flags(time, s)
     flags = make_flags(rows)
@@ -243,11 +254,13 @@ def run_checks(
         flags=flags,
         tables={"steady_points": steady_points, "drift": drift_table(results)},
         attrs=attrs,
-        verdicts=instrument_verdicts(flags, instruments),
+        verdicts=instrument_verdicts(flags, instruments, clock),
     )
 
 
-def _flag_phrase(row: pd.Series, instrument: str) -> str:
+def _flag_phrase(
+    row: pd.Series, instrument: str, clock: Callable[[float], str] = format_elapsed
+) -> str:
     start, end = float(row["start_s"]), float(row["end_s"])
     hours = (end - start) / 3600.0
     value = float(row["value"])
@@ -260,11 +273,15 @@ def _flag_phrase(row: pd.Series, instrument: str) -> str:
         else:
             size = f"{value:+.1f} % in lambda"
         who = ", shared suspect" if shared else ", suspect"
-        return f"{word} {size} from {format_elapsed(start)} ({hours:.1f} h){who}"
-    return f"{row['check']} from {format_elapsed(start)}"
+        return f"{word} {size} from {clock(start)}, flagged for {hours:.1f} h{who}"
+    return f"{row['check']} from {clock(start)}"
 
 
-def instrument_verdicts(flags: pd.DataFrame, instruments: list[str]) -> list[tuple[str, str]]:
+def instrument_verdicts(
+    flags: pd.DataFrame,
+    instruments: list[str],
+    clock: Callable[[float], str] = format_elapsed,
+) -> list[tuple[str, str]]:
     """One verdict per instrument: "ok" or its flags, most severe first."""
     out = []
     names = list(instruments)
@@ -284,7 +301,7 @@ def instrument_verdicts(flags: pd.DataFrame, instruments: list[str]) -> list[tup
         rank = mine["severity"].map(_SEVERITY_RANK).fillna(0)
         mine = mine.assign(_r=rank).sort_values(["_r", "start_s"], ascending=[False, True])
         counts = Counter(mine["check"])
-        first = _flag_phrase(mine.iloc[0], name)
+        first = _flag_phrase(mine.iloc[0], name, clock)
         extra = sum(counts.values()) - 1
         out.append(
             (name, first + (f" (+{extra} more flag{'s' if extra > 1 else ''})" if extra else ""))

@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+from datetime import UTC, datetime, timedelta
+
 import numpy as np
 import pandas as pd
 
@@ -45,6 +48,21 @@ def format_elapsed(seconds: float) -> str:
         return "--:--"
     minutes = int(round(seconds / 60.0))
     return f"{minutes // 60:02d}:{minutes % 60:02d}"
+
+
+def make_clock(start: datetime | None) -> Callable[[float], str]:
+    """Time labels for messages: ``03:25 UTC`` when the run's start is known, else the
+    elapsed ``hh:mm`` of :func:`format_elapsed`."""
+    if start is None:
+        return format_elapsed
+
+    def clock(seconds: float) -> str:
+        if not np.isfinite(seconds):
+            return "--:--"
+        when = start.astimezone(UTC) + timedelta(seconds=float(seconds))
+        return when.strftime("%H:%M UTC")
+
+    return clock
 
 
 def median_step(time: np.ndarray) -> float:
