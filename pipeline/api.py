@@ -76,6 +76,68 @@ def _verdict_lines(verdicts: list[tuple[str, str]]) -> list[str]:
     return [f"{name:<{width}}  {verdict}" for name, verdict in verdicts]
 
 
+def _emission_results(
+    frame: pd.DataFrame, cfg: Config, series: pd.DataFrame, tables: dict[str, pd.DataFrame]
+) -> list[str]:
+    """Add the ``emissions`` table (per steady point and night) and, when zero/span
+    references are configured, the 40 CFR 1065.672 drift-corrected series and the
+    ``drift_correction`` table; return notes for the console. ``series`` and ``tables`` are
+    extended in place."""
+    # Drift correction: correct the analyzer readings, recompute, compare (1065.550).
+    corrected_frame, readings, notes = apply_drift_correction(frame, cfg)
+    corrected = None
+    if corrected_frame is not None:
+        corrected = compute_balance(corrected_frame, cfg).derived
+        tables["drift_correction"] = readings
+        for g in cfg.drift_correction.gases:
+            series[f"{g}_driftcor"] = corrected_frame[g].to_numpy()
+        for name in ("co2_mass_flow", "co_mass_flow", "nox_mass_flow", "thc_mass_flow"):
+            if name in corrected:
+                series[f"{name}_driftcor"] = corrected[name].to_numpy()
+    steady = tables.get("steady_points")
+    intervals = (
+        [(f"SP{i + 1:02d}", float(a), float(b))
+         for i, (a, b) in enumerate(zip(steady["start_s"], steady["end_s"], strict=True))]
+        if steady is not None and len(steady) else []
+    )
+    if "co2_mass_flow" in series or "nox_mass_flow" in series:
+        tables["emissions"] = emissions_table(
+            series, intervals, cfg.fuel, cfg.verification, corrected
+        )
+    return notes
+
+
+def _provenance(cfg: Config, run: RunData, notes: list[str]) -> dict[str, Any]:
+    """Root attributes of the result file: tool, source file, config, fuel, input notes."""
+    meta = run.meta
+    attrs: dict[str, Any] = {
+        "title": f"dynoqc result: {cfg.run_name}",
+        "tool_name": "dynoqc",
+        "tool_version": __version__,
+        "created_utc": datetime.now(UTC).isoformat(timespec="seconds").replace("+00:00", "Z"),
+        "source_file": meta.source.name,
+        "source_sha256": meta.sha256,
+        "config_file": cfg.path.name,
+        "config_toml": cfg.to_toml(),
+        "config_sha256": cfg.sha256(),
+        "run_name": cfg.run_name,
+        "run_description": cfg.description,
+        "fuel": cfg.fuel.properties(),
+        "fuel_name": cfg.fuel.name,
+        "rows_read": meta.rows_read,
+        "rows_dropped": meta.rows_dropped,
+        "bad_cells": dict(meta.bad_cells),
+        "missing_cells": dict(meta.missing_cells),
+        "warnings": notes,
+        "input_metadata": dict(meta.metadata),
+    }
+    if meta.start_time is not None:
+        attrs["start_time_utc"] = (
+            meta.start_time.astimezone(UTC).isoformat().replace("+00:00", "Z")
+        )
+    return attrs
+
+
 def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessResult:
     """Process one logged night: ingest -> align -> balance -> checks. No files are written."""
     run_path = Path(run_path)
@@ -108,30 +170,8 @@ def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessRes
     )
     tables = dict(checked.tables)
     notes = run.meta.warnings + bal.warnings
+    notes += _emission_results(frame, cfg, series, tables)  # derived results, 1065.672
 
-    # 40 CFR 1065.672 drift correction, when zero/span references are configured: correct
-    # the analyzer readings, recompute, and compare (1065.550) in the emissions table.
-    corrected_frame, readings, dc_notes = apply_drift_correction(frame, cfg)
-    corrected = None
-    if corrected_frame is not None:
-        notes.extend(dc_notes)
-        corrected = compute_balance(corrected_frame, cfg).derived
-        tables["drift_correction"] = readings
-        for g in cfg.drift_correction.gases:
-            series[f"{g}_driftcor"] = corrected_frame[g].to_numpy()
-        for name in ("co2_mass_flow", "co_mass_flow", "nox_mass_flow", "thc_mass_flow"):
-            if name in corrected:
-                series[f"{name}_driftcor"] = corrected[name].to_numpy()
-    steady = tables.get("steady_points")
-    intervals = (
-        [(f"SP{i + 1:02d}", float(a), float(b))
-         for i, (a, b) in enumerate(zip(steady["start_s"], steady["end_s"], strict=True))]
-        if steady is not None and len(steady) else []
-    )
-    if "co2_mass_flow" in series or "nox_mass_flow" in series:
-        tables["emissions"] = emissions_table(
-            series, intervals, cfg.fuel, cfg.verification, corrected
-        )
     series_attrs = _series_attrs(cfg, run)
     series_attrs.update(checked.series_attrs)
     for name in series.columns:
@@ -142,35 +182,12 @@ def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessRes
                 "long_name": f"{series_attrs[base]['long_name']}, drift-corrected "
                 "(40 CFR 1065.672)",
             }
-
-    meta = run.meta
-    attrs: dict[str, Any] = {
-        "title": f"dynoqc result: {cfg.run_name}",
-        "tool_name": "dynoqc",
-        "tool_version": __version__,
-        "created_utc": datetime.now(UTC).isoformat(timespec="seconds").replace("+00:00", "Z"),
-        "source_file": meta.source.name,
-        "source_sha256": meta.sha256,
-        "config_file": cfg.path.name,
-        "config_toml": cfg.to_toml(),
-        "config_sha256": cfg.sha256(),
-        "run_name": cfg.run_name,
-        "run_description": cfg.description,
-        "fuel": cfg.fuel.properties(),
-        "fuel_name": cfg.fuel.name,
-        "rows_read": meta.rows_read,
-        "rows_dropped": meta.rows_dropped,
-        "bad_cells": dict(meta.bad_cells),
-        "warnings": notes,
-        "input_metadata": dict(meta.metadata),
-        "balance": dict(bal.attrs),
-        "checks_settings": dict(checked.attrs),
-        "instrument_verdicts": dict(checked.verdicts),
-    }
-    if meta.start_time is not None:
-        attrs["start_time_utc"] = (
-            meta.start_time.astimezone(UTC).isoformat().replace("+00:00", "Z")
-        )
+    attrs = _provenance(cfg, run, notes)
+    attrs.update(
+        balance=dict(bal.attrs),
+        checks_settings=dict(checked.attrs),
+        instrument_verdicts=dict(checked.verdicts),
+    )
     return ProcessResult(
         series=series,
         series_attrs=series_attrs,
