@@ -176,6 +176,8 @@ def apply_drift_correction(
         out[gas] = drift_correct(frame[gas].to_numpy(float), ref_zero, ref_span,
                                  pre_z, pre_s, post_z, post_s)
         uncovered = ~np.isfinite(post_z + post_s)
+        if mode is not None:  # zero/span/purge samples themselves need no correction
+            uncovered &= np.nan_to_num(mode) == 0
         if uncovered.any():
             notes.append(
                 f"Drift correction of {gas}: no zero/span reading after "
