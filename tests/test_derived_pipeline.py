@@ -136,3 +136,16 @@ def test_drift_correction_and_emissions_table_with_validation():
     assert table["brake_power"].iloc[0] == pytest.approx(31.4159, rel=1e-4)
     assert table["bsfc_g_per_kWh"].iloc[0] == pytest.approx(10_000 / 31.4159, rel=1e-3)
     assert table["carbon_balance_verdict"].iloc[0] == "no limit configured"
+
+
+def test_span_gas_without_mode_channel_is_not_taken_for_exhaust():
+    # CO2 span gas at one analyzer and air at the O2 analyzer (CO2 + O2 = 0.33) cannot be
+    # combustion exhaust: in exhaust CO2 + O2 stays below air's 0.2098 (REFERENCES 1.2).
+    frame, _ = _frame(n=100)
+    frame.loc[40:59, "co2"] = 0.12
+    frame.loc[40:59, "o2"] = 0.2095
+    out = compute_balance(frame, _config())
+    sampling = out.derived["sampling"].to_numpy()
+    assert sampling[40:60].sum() == 0 and sampling[:40].all() and sampling[60:].all()
+    assert np.isnan(out.derived["lambda_oxygen"].to_numpy()[40:60]).all()
+    assert "span gas" in out.flags["message"].iloc[0]

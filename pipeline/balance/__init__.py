@@ -40,6 +40,10 @@ from .humidity import (
 from .methods import lambda_iso16183, lambda_spindt
 from .oxygen import lambda_brettschneider, lambda_oxygen_carbon_free
 
+#: Above this CO2 + O2 (mol/mol, as read) the analyzers cannot be seeing combustion exhaust:
+#: air's O2 + CO2 is 0.2098 (REFERENCES 1.2), plus a margin for analyzer error and basis.
+IMPOSSIBLE_O2_PLUS_CO2 = 0.225
+
 __all__ = ["BalanceResult", "compute_balance", "chemical_balance", "lambda_brettschneider"]
 
 
@@ -161,6 +165,13 @@ def compute_balance(frame: pd.DataFrame, config: Config) -> BalanceResult:
             if gases[g] is not None:
                 carbon = carbon + np.nan_to_num(gases[g], nan=0.0)
         not_sampling = np.isfinite(carbon) & (carbon < s.not_sampling_carbon_fraction)
+    if gases["o2"] is not None and gases["co2"] is not None:
+        # Combustion turns O2 into at most as many moles of CO2 (for any fuel with
+        # H/C >= 2 O/C), so in exhaust CO2 + O2 stays below the O2 + CO2 of air (0.2098,
+        # REFERENCES 1.2); more means span gases or a calibration mix at the analyzers.
+        with np.errstate(invalid="ignore"):
+            impossible = gases["o2"] + gases["co2"] > IMPOSSIBLE_O2_PLUS_CO2
+        not_sampling |= impossible
     mode = _col(frame, "analyzer_mode")
     if mode is not None:
         not_sampling |= np.isfinite(mode) & (mode != 0)
@@ -257,11 +268,12 @@ def compute_balance(frame: pd.DataFrame, config: Config) -> BalanceResult:
                 }
             )
     for start, end, i0, i1 in mask_to_intervals(t, not_sampling & fuel_on):
-        why = (
-            "analyzer_mode reports zero/span/purge"
-            if mode is not None and np.any(np.nan_to_num(mode[i0 : i1 + 1]) != 0)
-            else "exhaust carbon reads near zero while fuel flows"
-        )
+        if mode is not None and np.any(np.nan_to_num(mode[i0 : i1 + 1]) != 0):
+            why = "analyzer_mode reports zero/span/purge"
+        elif fuel.has_carbon and np.nanmin(carbon[i0 : i1 + 1]) < s.not_sampling_carbon_fraction:
+            why = "exhaust carbon reads near zero while fuel flows"
+        else:
+            why = "CO2 + O2 read above air's O2, as with span gas"
         rows.append(
             {
                 "start_s": start,
