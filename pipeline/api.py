@@ -77,7 +77,11 @@ def _verdict_lines(verdicts: list[tuple[str, str]]) -> list[str]:
 
 
 def _emission_results(
-    frame: pd.DataFrame, cfg: Config, series: pd.DataFrame, tables: dict[str, pd.DataFrame]
+    frame: pd.DataFrame,
+    cfg: Config,
+    series: pd.DataFrame,
+    tables: dict[str, pd.DataFrame],
+    delay_s: float,
 ) -> list[str]:
     """Add the ``emissions`` table (per steady point and night) and, when zero/span
     references are configured, the 40 CFR 1065.672 drift-corrected series and the
@@ -87,7 +91,7 @@ def _emission_results(
     corrected_frame, readings, notes = apply_drift_correction(frame, cfg)
     corrected = None
     if corrected_frame is not None:
-        corrected = compute_balance(corrected_frame, cfg).derived
+        corrected = compute_balance(corrected_frame, cfg, analyzer_delay_s=delay_s).derived
         tables["drift_correction"] = readings
         for g in cfg.drift_correction.gases:
             series[f"{g}_driftcor"] = corrected_frame[g].to_numpy()
@@ -149,7 +153,8 @@ def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessRes
     frame, alignment = align_analyzers(
         run.frame, gas_columns, settings, cfg.sampling.analyzer_delay_s
     )
-    bal = compute_balance(frame, cfg)  # balance
+    delay = float(alignment.get("analyzer_delay_s", 0.0))
+    bal = compute_balance(frame, cfg, analyzer_delay_s=delay)  # balance
     checked = run_checks(  # checks
         frame,
         bal.derived,
@@ -170,7 +175,7 @@ def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessRes
     )
     tables = dict(checked.tables)
     notes = run.meta.warnings + bal.warnings
-    notes += _emission_results(frame, cfg, series, tables)  # derived results, 1065.672
+    notes += _emission_results(frame, cfg, series, tables, delay)  # derived results, 1065.672
 
     series_attrs = _series_attrs(cfg, run)
     series_attrs.update(checked.series_attrs)

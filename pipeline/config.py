@@ -8,6 +8,7 @@ with a "did you mean" hint.
 from __future__ import annotations
 
 import difflib
+import re
 import tomllib
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
@@ -16,6 +17,10 @@ from typing import Any
 from .errors import ConfigError
 from .fuels import Fuel, blend_by_mass, load_presets
 from .quantities import INPUTS
+
+#: ``Channel.unit`` of a column channel whose config gives no unit: the file must give it
+#: (units row, unit in the name, Parquet field metadata, MDF channel unit).
+UNIT_FROM_FILE = ""
 
 REQUIRED_CHANNELS = ("time", "fuel_mass_flow", "air_mass_flow", "co2", "o2")
 
@@ -32,7 +37,7 @@ _RUN_KEYS = {"name", "description"}
 _FUEL_KEYS = {
     "preset", "blend", "h_c", "o_c", "s_c", "n_c", "c", "lhv_MJ_per_kg", "density_kg_per_m3"
 }
-_INPUT_KEYS = {"delimiter", "decimal", "encoding", "units_row", "timezone"}
+_INPUT_KEYS = {"delimiter", "decimal", "encoding", "units_row", "timezone", "raster_s"}
 _CHANNEL_KEYS = {"column", "value", "unit", "basis", "carbon_number", "format", "range"}
 _SAMPLING_KEYS = {
     "dryer_dewpoint_degC",
@@ -42,6 +47,7 @@ _SAMPLING_KEYS = {
     "not_sampling_carbon_fraction",
     "nox_no2_fraction",
     "condensation_margin_K",
+    "not_sampling_guard_s",
 }
 
 
@@ -50,12 +56,18 @@ def _hint(word: str, options: set[str] | list[str]) -> str:
     return f' Did you mean "{close[0]}"?' if close else ""
 
 
-def _check_keys(table: dict[str, Any], allowed: set[str], where: str, path: Path) -> None:
+def _check_keys(table: Any, allowed: set[str], where: str, path: Path) -> None:
+    if not isinstance(table, dict):
+        raise ConfigError(
+            f"{path}: {where} must be a table (a [section] with key = value lines), got "
+            f"{table!r}."
+        )
     for key in table:
         if key not in allowed:
+            what = "table" if isinstance(table[key], dict) else "key"
             raise ConfigError(
-                f"{path}: unknown key '{key}' in {where}.{_hint(key, allowed)} "
-                f"Allowed keys: {', '.join(sorted(allowed))}."
+                f"{path}: unknown {what} '{key}' in {where}.{_hint(key, allowed)} "
+                f"Allowed: {', '.join(sorted(allowed))}."
             )
 
 
@@ -86,6 +98,7 @@ class InputOptions:
     encoding: str | None = None
     units_row: bool | None = None
     timezone: str | None = None
+    raster_s: float | None = None  # MDF: the common time raster (default: fastest channel)
 
 
 @dataclass(frozen=True)
@@ -106,6 +119,8 @@ class Sampling:
     condensation_margin_K: a ``condensation_risk`` flag is raised where the logged
         sample-line temperature is below the exhaust dew point plus this margin (common
         practice: keep heated lines well above the dew point).
+    not_sampling_guard_s: every not-sampling stretch is widened by this on both sides, for
+        the analyzers' response to the gas change (common practice: a few time constants).
     """
 
     dryer_dewpoint_degC: float | None = None
@@ -115,6 +130,7 @@ class Sampling:
     not_sampling_carbon_fraction: float = 0.003
     nox_no2_fraction: float = 0.0
     condensation_margin_K: float = 5.0
+    not_sampling_guard_s: float = 5.0
 
 
 @dataclass(frozen=True)
@@ -340,15 +356,21 @@ def _parse_channel(name: str, table: Any, path: Path) -> Channel:
     if "unit" not in table:
         if q.unit == "1" or name == "time":
             unit = q.unit
-        else:
+        elif "value" in table:
             raise ConfigError(f"{path}: {where} needs unit = \"...\" (canonical: {q.unit}).")
+        else:
+            unit = UNIT_FROM_FILE  # taken from the file (units row, schema, channel metadata)
     else:
-        unit = str(table["unit"])
+        unit = table["unit"]
     basis = table.get("basis")
     if q.needs_basis:
         if basis not in ("dry", "wet"):
+            got = "no basis" if basis is None else f"basis = {basis!r}"
+            hint = _hint(str(basis).strip().lower(), ["dry", "wet"]) if basis is not None else ""
             raise ConfigError(
-                f"{path}: {where} basis must be \"dry\" or \"wet\", got {basis!r}."
+                f"{path}: {where} has {got}; {name} needs basis = \"dry\" (measured after a "
+                f"chiller/dryer) or basis = \"wet\" (hot, undried sample"
+                f"{' or the usual humid-air meter' if name == 'air_mass_flow' else ''}).{hint}"
             )
     elif basis is not None:
         raise ConfigError(f"{path}: {where} has basis, but {name} is not a gas concentration.")
@@ -368,7 +390,16 @@ def _parse_channel(name: str, table: Any, path: Path) -> Channel:
     if name == "time" and value is not None:
         raise ConfigError(f"{path}: [channels.time] must name a column, not a value.")
     rng = _number(table["range"], f"{where} range", path) if "range" in table else None
-    column = str(table["column"]) if "column" in table else None
+    column = None
+    if "column" in table:
+        if not isinstance(table["column"], str) or not table["column"].strip():
+            raise ConfigError(
+                f"{path}: {where} column must be the logger's column name as text, e.g. "
+                f"column = \"{name}\"; got {table['column']!r}."
+            )
+        column = table["column"]
+    if not isinstance(unit, str):
+        raise ConfigError(f"{path}: {where} unit must be text, e.g. unit = \"{q.unit}\".")
     return Channel(name, unit, column, value, basis, carbon_number, fmt, rng)
 
 
@@ -428,6 +459,34 @@ def _parse_drift_correction(
     return DriftCorrection(**options, gases=gases)
 
 
+def _check_units(channels: dict[str, Channel], fuel: Fuel, path: Path) -> None:
+    """Each channel's unit must be a known spelling of its quantity's dimension."""
+    from .units import conversion
+
+    for name, ch in channels.items():
+        if (name == "time" and ch.format == "iso8601") or (
+            ch.unit == UNIT_FROM_FILE and ch.column is not None
+        ):
+            continue
+        try:
+            conversion(ch.unit, name, f"[channels.{name}] unit", fuel.density_kg_per_m3)
+        except ConfigError as exc:
+            raise ConfigError(f"{path}: {exc}") from None
+
+
+def _check_checks(checks: dict[str, Any], path: Path) -> None:
+    """Unknown or non-numeric ``[checks]`` keys, found at load time (the checks stage owns
+    the list of keys)."""
+    try:
+        from .checks.settings import resolve_settings
+    except ImportError:  # pragma: no cover - the checks stage is part of the package
+        return
+    try:
+        resolve_settings(checks)
+    except ConfigError as exc:
+        raise ConfigError(f"{path}: {exc}") from None
+
+
 def parse_config(raw: dict[str, Any], path: Path) -> Config:
     """Validate a parsed TOML document and resolve defaults."""
     _check_keys(raw, _TOP_KEYS, "the top level", path)
@@ -445,6 +504,27 @@ def parse_config(raw: dict[str, Any], path: Path) -> Config:
         raise ConfigError(
             f"{path}: [input] delimiter must be one character, e.g. \",\" \";\" \"\\t\"."
         )
+    if "units_row" in inp and not isinstance(inp["units_row"], bool):
+        raise ConfigError(
+            f"{path}: [input] units_row must be true or false, got {inp['units_row']!r}."
+        )
+    for key in ("encoding", "timezone"):
+        if key in inp and not isinstance(inp[key], str):
+            raise ConfigError(f"{path}: [input] {key} must be text, got {inp[key]!r}.")
+    if "encoding" in inp:
+        import codecs
+
+        try:
+            codecs.lookup(inp["encoding"])
+        except LookupError:
+            raise ConfigError(
+                f"{path}: [input] encoding '{inp['encoding']}' is not a known text encoding; "
+                "use e.g. \"utf-8\", \"utf-8-sig\" or \"cp1252\"."
+            ) from None
+    if "raster_s" in inp:
+        raster = _number(inp["raster_s"], "[input] raster_s", path)
+        if not raster > 0:
+            raise ConfigError(f"{path}: [input] raster_s must be positive, got {raster!r}.")
     input_opts = InputOptions(**inp)
 
     channels_raw = raw.get("channels")
@@ -467,6 +547,8 @@ def parse_config(raw: dict[str, Any], path: Path) -> Config:
     if "ambient_humidity" in channels and "intake_humidity" in channels:
         raise ConfigError(f"{path}: give either ambient_humidity or intake_humidity, not both.")
 
+    _check_units(channels, fuel, path)
+
     samp = raw.get("sampling", {})
     _check_keys(samp, _SAMPLING_KEYS, "[sampling]", path)
     sampling = Sampling(**{k: _number(v, f"[sampling].{k}", path) for k, v in samp.items()})
@@ -482,6 +564,7 @@ def parse_config(raw: dict[str, Any], path: Path) -> Config:
     checks = raw.get("checks", {})
     if not isinstance(checks, dict):
         raise ConfigError(f"{path}: [checks] must be a table.")
+    _check_checks(checks, path)
     return Config(
         path=path,
         run_name=str(run.get("name", path.stem)),
@@ -510,5 +593,31 @@ def load_config(path: str | Path) -> Config:
     try:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"{path}: TOML syntax error: {exc}.") from None
+        raise ConfigError(_toml_error_message(path, text, exc)) from None
     return parse_config(raw, path)
+
+
+def _toml_error_message(path: Path, text: str, exc: tomllib.TOMLDecodeError) -> str:
+    """``file, line N: TOML syntax error: <reason>`` with the offending line quoted."""
+    msg = str(exc)
+    m = re.search(r"\(at line (\d+), column (\d+)\)", msg)
+    if m is None:
+        if "end of document" in msg:
+            n_lines = text.count("\n") + 1
+            m_line = n_lines
+            reason = msg.split(" (at")[0]
+            return f"{path}, line {m_line}: TOML syntax error: {reason} (at the end of the file)."
+        return f"{path}: TOML syntax error: {msg}."
+    line_no = int(m.group(1))
+    reason = msg[: m.start()].strip()
+    lines = text.splitlines()
+    shown = lines[line_no - 1].strip() if 0 < line_no <= len(lines) else ""
+    fix = ""
+    if re.match(r"^[A-Za-z_][\w.-]*\s*=\s*[A-Za-z]", shown) and not re.search(
+        r"=\s*(true|false|inf|nan)\b", shown
+    ):
+        fix = " Text values need quotes, e.g. unit = \"kg/h\"."
+    elif shown.startswith("[") and not shown.endswith("]"):
+        fix = " A table header needs a closing bracket, e.g. [channels.co2]."
+    quoted = f" in '{shown}'" if shown else ""
+    return f"{path}, line {line_no}: TOML syntax error{quoted}: {reason}.{fix}"

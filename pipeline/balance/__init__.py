@@ -17,7 +17,7 @@ from ..config import Config
 from ..data import make_flags
 from ..errors import ConfigError
 from ..fuels import Fuel
-from ..intervals import mask_to_intervals
+from ..intervals import mask_to_intervals, runs
 from .chemical import ChemicalBalance, chemical_balance
 from .emissions import (
     KG_H_TO_G_S,
@@ -103,7 +103,9 @@ def intake_water_fraction(frame: pd.DataFrame, warnings: list[str]) -> np.ndarra
     return np.zeros(n)
 
 
-def compute_balance(frame: pd.DataFrame, config: Config) -> BalanceResult:
+def compute_balance(
+    frame: pd.DataFrame, config: Config, *, analyzer_delay_s: float = 0.0
+) -> BalanceResult:
     """Compute lambda_flow, lambda_carbon, lambda_oxygen, water and dew point for every sample.
 
     - lambda_flow: measured air (made dry with the intake humidity, REFERENCES 1.6) over fuel,
@@ -117,7 +119,10 @@ def compute_balance(frame: pd.DataFrame, config: Config) -> BalanceResult:
 
     Where the analyzers do not sample exhaust (``analyzer_mode`` not 0, or exhaust carbon below
     ``[sampling] not_sampling_carbon_fraction``) the exhaust-based values are NaN and, while
-    fuel flows, an ``analyzer_not_sampling`` flag is raised.
+    fuel flows, an ``analyzer_not_sampling`` flag is raised. ``analyzer_delay_s`` is the shift
+    already applied to the gas channels of ``frame``: the ``analyzer_mode`` channel (not
+    shifted) is applied both as logged and shifted by it, and every not-sampling stretch is
+    widened by ``[sampling] not_sampling_guard_s`` for the analyzers' response.
     """
     fuel = config.fuel
     s = config.sampling
@@ -174,7 +179,8 @@ def compute_balance(frame: pd.DataFrame, config: Config) -> BalanceResult:
         not_sampling |= impossible
     mode = _col(frame, "analyzer_mode")
     if mode is not None:
-        not_sampling |= np.isfinite(mode) & (mode != 0)
+        not_sampling |= _mode_mask(t, mode, analyzer_delay_s)
+    not_sampling = _widen(t, not_sampling, s.not_sampling_guard_s)
     sampling = ~not_sampling
 
     def masked(x: np.ndarray | None) -> np.ndarray | None:
@@ -421,6 +427,29 @@ def _condensation_flags(
             }
         )
     return rows
+
+
+def _mode_mask(t: np.ndarray, mode: np.ndarray, delay_s: float) -> np.ndarray:
+    """Samples where ``analyzer_mode`` is not 0, as logged and as seen through the analyzer
+    shift (the aligned gas value at t was read at t + delay)."""
+    raw = np.isfinite(mode) & (mode != 0)
+    if delay_s <= 0 or t.size == 0:
+        return raw
+    idx = np.clip(np.searchsorted(t, t + delay_s, side="right") - 1, 0, t.size - 1)
+    return raw | raw[idx]
+
+
+def _widen(t: np.ndarray, mask: np.ndarray, guard_s: float) -> np.ndarray:
+    """``mask`` widened by ``guard_s`` on both sides of every run (vectorised)."""
+    if guard_s <= 0 or not mask.any():
+        return mask
+    starts, ends = runs(mask)
+    lo = np.searchsorted(t, t[starts] - guard_s, side="left")
+    hi = np.searchsorted(t, t[ends] + guard_s, side="right")
+    edges = np.zeros(t.size + 1, dtype=np.int64)
+    np.add.at(edges, lo, 1)
+    np.add.at(edges, hi, -1)
+    return np.cumsum(edges[:-1]) > 0
 
 
 def _positive(x: np.ndarray) -> np.ndarray:
