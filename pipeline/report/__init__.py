@@ -1,8 +1,11 @@
 """Report stage: the only stage that writes files.
 
 - :func:`write_result` (``hdf5.py``): the HDF5 result file of DESIGN.md "Result file (contract)".
-- :func:`plot_lambda_overview` (``plots.py``): report figures, built from a read-back
-  :class:`pipeline.result.ResultFile` only.
+- :func:`render_report` (``render.py``): figures and the night summary, rebuilt from a result
+  file alone. One module per figure (``overview``, ``consistency``, ``residuals``,
+  ``steady_table``, ``water``, ``fuel``, ``emissions``) on the shared helpers of ``plots.py``;
+  the numbers behind them in ``reportdata.py``; the summary (Markdown, PDF, JSON) in
+  ``summary.py``.
 
 matplotlib is imported only when a plotting function is first used, so ``--no-plots`` runs and
 ``--help`` stay fast.
@@ -17,13 +20,15 @@ from .render import render_report
 
 __all__ = ["envelope", "plot_lambda_overview", "render_report", "write_result"]
 
-_PLOTS = {"envelope", "plot_lambda_overview"}
-
 
 def __getattr__(name: str) -> Any:
     """Lazy access to the plotting functions (imports matplotlib on first use)."""
-    if name in _PLOTS:
-        from . import plots
+    if name == "envelope":
+        from .plots import envelope
 
-        return getattr(plots, name)
+        return envelope
+    if name == "plot_lambda_overview":
+        from .overview import plot_lambda_overview
+
+        return plot_lambda_overview
     raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

@@ -1,23 +1,72 @@
-"""Render the figures (and later the summary) of a result file, from the file alone."""
+"""Render the report of a result file, from the file alone: figures and the night summary.
+
+:func:`render_report` is the entry point of ``dynoqc process`` (after writing the .h5) and
+``dynoqc report RESULT.h5``. Each figure lives in its own module with a ``NAME`` and a
+``figure(res, out_dir, stem) -> list[Path]`` that raises
+:class:`pipeline.report.plots.FigureSkipped` when the result lacks what it needs; a skipped
+figure is listed with its reason in the summary, never drawn as an empty axes.
+"""
 
 from __future__ import annotations
 
+import warnings
+from importlib import import_module
 from pathlib import Path
+
+#: Figure modules in report order (``pipeline.report.<module>``).
+FIGURE_MODULES = (
+    "overview",
+    "consistency",
+    "residuals",
+    "steady_table",
+    "water",
+    "fuel",
+    "emissions",
+)
+
+
+def render_figures(res: object, out_dir: Path, stem: str) -> tuple[list[Path], dict[str, str]]:
+    """Every figure that can be made: (paths written, {figure name: reason skipped})."""
+    from .plots import FigureSkipped
+
+    written: list[Path] = []
+    skipped: dict[str, str] = {}
+    for mod_name in FIGURE_MODULES:
+        mod = import_module(f"{__package__}.{mod_name}")
+        try:
+            written += mod.figure(res, out_dir, stem)
+        except FigureSkipped as exc:
+            skipped[mod.NAME] = str(exc)
+        except Exception as exc:  # one broken figure must not cost the others and the summary
+            warnings.warn(f"figure {mod.NAME!r} failed: {exc!r}", RuntimeWarning, stacklevel=2)
+            skipped[mod.NAME] = f"could not be drawn (internal error: {exc}); please report it"
+    return written, skipped
 
 
 def render_report(
     result_path: str | Path, out_dir: str | Path, *, plots: bool = True
 ) -> list[Path]:
-    """Write the report outputs of ``result_path`` into ``out_dir``; return their paths."""
+    """Write the report outputs of ``result_path`` into ``out_dir``; return their paths.
+
+    Always the summary (``<stem>_summary.md``, ``.pdf``, ``.json``); with ``plots`` the
+    figures ``<stem>_<figure>.png`` (see :data:`FIGURE_MODULES`). Figures first, then the
+    summary, which lists the figures written and skipped.
+    """
     from ..result import read_result
+    from .summary import build_summary, write_json, write_markdown, write_pdf
 
     result_path = Path(result_path)
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     res = read_result(result_path)
-    outputs: list[Path] = []
+    stem = result_path.stem
+    figures: list[Path] = []
+    skipped: dict[str, str] = {}
     if plots:
-        from .plots import plot_lambda_overview
-
-        outputs.append(plot_lambda_overview(res, out_dir / f"{result_path.stem}_lambda.png"))
+        figures, skipped = render_figures(res, out_dir, stem)
+    summary = build_summary(res, figures, skipped)
+    outputs = list(figures)
+    outputs.append(write_markdown(summary, out_dir / f"{stem}_summary.md"))
+    outputs.append(write_pdf(summary, out_dir / f"{stem}_summary.pdf"))
+    outputs.append(write_json(summary, out_dir / f"{stem}_summary.json"))
     return outputs

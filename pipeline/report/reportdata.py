@@ -1,0 +1,632 @@
+"""The numbers behind the report figures and the summary, computed from a result file alone.
+
+Everything here is a pure function of a :class:`pipeline.result.ResultFile` (no plotting, no
+file writing), so the data behind each figure is tested numerically on arrays.
+
+Steady-point statistics are recomputed from ``/timeseries/`` over the windows of the
+``/steady_points/`` table (or of the ``steady`` mask when the table is absent), using only the
+samples that are steady, valid and taken while the analyzers sample exhaust. That keeps a
+zero/span window or a logger dropout inside a steady window out of the means.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from datetime import timedelta
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ..result import ResultFile
+
+#: Default consistency tolerance (fraction) when the result carries no checks settings:
+#: +-3 % between lambda estimates, common practice for a healthy raw-exhaust bench (from memory).
+DEFAULT_TOLERANCE = 0.03
+
+#: Length of the blocks [s] used to show the spread inside steady points in scatter plots.
+BLOCK_S = 300.0
+
+#: Lambda estimate moved by a fault of each suspect (DESIGN.md "Lambda estimates").
+SUSPECT_ESTIMATE: dict[str, str] = {
+    "co2": "lambda_carbon",
+    "co": "lambda_carbon",
+    "thc": "lambda_carbon",
+    "o2": "lambda_oxygen",
+    "air_mass_flow": "lambda_flow",
+    "fuel_mass_flow": "lambda_flow",
+    "air_mass_flow|fuel_mass_flow": "lambda_flow",
+    "lambda_sensor": "lambda_sensor",
+}
+
+#: Plain names of the instruments behind canonical channel names.
+INSTRUMENT_NAMES: dict[str, str] = {
+    "co2": "CO2 analyzer",
+    "co": "CO analyzer",
+    "o2": "O2 analyzer",
+    "thc": "THC analyzer",
+    "nox": "NOx analyzer",
+    "no": "NO analyzer",
+    "no2": "NO2 analyzer",
+    "h2": "H2 analyzer",
+    "air_mass_flow": "air flow meter",
+    "fuel_mass_flow": "fuel flow meter",
+    "air_mass_flow|fuel_mass_flow": "air or fuel flow meter",
+    "lambda_sensor": "wide-band lambda sensor",
+    "speed": "speed measurement",
+    "torque": "torque measurement",
+    "sample_line_temperature": "sample line heating",
+    "time": "logger clock",
+}
+
+#: Checks that say data are missing or not exhaust, not that an instrument is wrong.
+AVAILABILITY_CHECKS = ("data_gap", "analyzer_not_sampling", "time_irregular")
+
+#: Checks that make an instrument a suspect of a measurement error.
+FAULT_CHECKS = ("drift", "lambda_disagreement")
+
+#: The residual series of the checks stage and the estimates they compare.
+RESIDUALS: dict[str, tuple[str, str]] = {
+    "residual_carbon_flow": ("lambda_carbon", "lambda_flow"),
+    "residual_oxygen_flow": ("lambda_oxygen", "lambda_flow"),
+    "residual_oxygen_carbon": ("lambda_oxygen", "lambda_carbon"),
+    "residual_sensor_flow": ("lambda_sensor", "lambda_flow"),
+    "residual_sensor_carbon": ("lambda_sensor", "lambda_carbon"),
+    "residual_sensor_oxygen": ("lambda_sensor", "lambda_oxygen"),
+}
+
+#: Emission-rate series shown per steady point, with plain labels.
+EMISSIONS: dict[str, str] = {
+    "co2_mass_flow": "CO2",
+    "co_mass_flow": "CO",
+    "nox_mass_flow": "NOx (as NO2)",
+    "thc_mass_flow": "THC (C1)",
+}
+
+#: Fraction of a steady point a fault flag must cover to be named in the point's verdict.
+MIN_OVERLAP = 0.2
+
+_SEVERITY_RANK = {"info": 0, "warning": 1, "error": 2}
+
+
+# ------------------------------------------------------------------------------------------
+# time
+# ------------------------------------------------------------------------------------------
+def clock(res: ResultFile, seconds: float, *, with_elapsed: bool = False) -> str:
+    """A time of the night as text: ``HH:MM UTC`` when the start is known, else ``6.2 h``.
+
+    ``with_elapsed`` adds the hours since the start in brackets to a clock time.
+    """
+    if not np.isfinite(seconds):
+        return "unknown time"
+    hours = seconds / 3600.0
+    if res.start_time is None:
+        return f"{hours:.1f} h into the run"
+    text = f"{res.start_time + timedelta(minutes=round(seconds / 60.0)):%H:%M} UTC"
+    return f"{text} ({hours:.1f} h into the run)" if with_elapsed else text
+
+
+def duration_text(seconds: float) -> str:
+    """A duration as ``63 s``, ``15 min`` or ``3.8 h``."""
+    if not np.isfinite(seconds):
+        return "unknown duration"
+    if seconds < 120:
+        return f"{seconds:.0f} s"
+    if seconds < 2 * 3600:
+        return f"{seconds / 60:.0f} min"
+    return f"{seconds / 3600:.1f} h"
+
+
+# ------------------------------------------------------------------------------------------
+# settings
+# ------------------------------------------------------------------------------------------
+def tolerance(res: ResultFile) -> tuple[float, float, str]:
+    """(tolerance, sensor tolerance, source) for the consistency band, as fractions.
+
+    From ``attrs["checks_settings"]`` (``disagreement_tolerance``,
+    ``disagreement_tolerance_sensor``) when present, else :data:`DEFAULT_TOLERANCE` for both.
+    """
+    s = res.attrs.get("checks_settings")
+    if isinstance(s, dict) and np.isfinite(float(s.get("disagreement_tolerance", np.nan))):
+        tol = float(s["disagreement_tolerance"])
+        tol_s = float(s.get("disagreement_tolerance_sensor", tol))
+        return tol, tol_s, "checks settings of this result"
+    return DEFAULT_TOLERANCE, DEFAULT_TOLERANCE, "dynoqc default (no checks settings in result)"
+
+
+def series(res: ResultFile, name: str) -> np.ndarray | None:
+    """A time series as float64, or None when absent or never finite."""
+    if name not in res.timeseries.columns:
+        return None
+    v = res.timeseries[name].to_numpy(dtype=np.float64)
+    return v if np.isfinite(v).any() else None
+
+
+def judged_mask(res: ResultFile) -> np.ndarray:
+    """Samples fit to judge: ``valid`` and ``sampling`` (each taken as 1 when not written)."""
+    n = len(res.timeseries)
+    mask = np.ones(n, dtype=bool)
+    for name in ("valid", "sampling"):
+        v = series(res, name)
+        if v is not None:
+            mask &= v > 0.5
+    return mask
+
+
+# ------------------------------------------------------------------------------------------
+# steady points
+# ------------------------------------------------------------------------------------------
+def steady_windows(res: ResultFile) -> pd.DataFrame:
+    """Start and end [s] of each steady point, numbered from 1 in time order.
+
+    From ``/steady_points/`` (``start_s``, ``end_s``) when present, else from the runs of
+    the ``steady`` series. Empty (columns ``point``, ``start_s``, ``end_s``) when neither.
+    """
+    tab = res.tables.get("steady_points")
+    if tab is not None and len(tab) and {"start_s", "end_s"} <= set(tab.columns):
+        start = tab["start_s"].to_numpy(dtype=np.float64)
+        end = tab["end_s"].to_numpy(dtype=np.float64)
+    else:
+        st = series(res, "steady")
+        if st is None:
+            return pd.DataFrame({"point": [], "start_s": [], "end_s": []})
+        t = res.timeseries["time"].to_numpy(dtype=np.float64)
+        on = np.r_[False, st > 0.5, False]
+        edges = np.flatnonzero(np.diff(on.astype(np.int8)))
+        start, end = t[edges[0::2]], t[edges[1::2] - 1]
+    order = np.argsort(start, kind="stable")
+    return pd.DataFrame(
+        {"point": np.arange(1, len(order) + 1), "start_s": start[order], "end_s": end[order]}
+    )
+
+
+def point_index(res: ResultFile, windows: pd.DataFrame | None = None) -> np.ndarray:
+    """Per sample: the 0-based steady point it belongs to, or -1.
+
+    A sample belongs to a point when it lies in the point's window, is flagged ``steady``
+    (when that series exists) and is fit to judge (:func:`judged_mask`).
+    """
+    w = steady_windows(res) if windows is None else windows
+    t = res.timeseries["time"].to_numpy(dtype=np.float64)
+    if not len(w):
+        return np.full(t.size, -1, dtype=np.intp)
+    start = w["start_s"].to_numpy(dtype=np.float64)
+    end = w["end_s"].to_numpy(dtype=np.float64)
+    idx = np.searchsorted(start, t, side="right") - 1
+    inside = (idx >= 0) & (t <= end[np.clip(idx, 0, None)])
+    st = series(res, "steady")
+    if st is not None:
+        inside &= st > 0.5
+    inside &= judged_mask(res)
+    return np.where(inside, idx, -1)
+
+
+def _group_means(
+    key: np.ndarray, n_groups: int, values: dict[str, np.ndarray | None]
+) -> dict[str, np.ndarray]:
+    """Mean of each value over the samples of each group (finite samples only; NaN if none)."""
+    use = key >= 0
+    out: dict[str, np.ndarray] = {}
+    for name, v in values.items():
+        if v is None:
+            out[name] = np.full(n_groups, np.nan)
+            continue
+        good = use & np.isfinite(v)
+        count = np.bincount(key[good], minlength=n_groups)
+        total = np.bincount(key[good], weights=v[good], minlength=n_groups)
+        with np.errstate(invalid="ignore", divide="ignore"):  # empty groups: NaN on purpose
+            out[name] = np.where(count > 0, total / count, np.nan)
+    return out
+
+
+#: Quantities averaged per steady point.
+POINT_QUANTITIES = (
+    "speed",
+    "torque",
+    "brake_power",
+    "fuel_mass_flow",
+    "fuel_mass_flow_carbon",
+    "air_mass_flow",
+    "air_dry_mass_flow",
+    "lambda_flow",
+    "lambda_carbon",
+    "lambda_oxygen",
+    "lambda_sensor",
+    "exhaust_dewpoint",
+    "sample_line_temperature",
+    *RESIDUALS,
+    "residual_fuel_flow",
+    *EMISSIONS,
+)
+
+
+def carbon_balance_error(
+    fuel_kg_h: np.ndarray,
+    fuel_carbon_kg_h: np.ndarray,
+    air_dry_kg_h: np.ndarray | None,
+    w_c: float,
+    x_co2_air: float,
+) -> np.ndarray:
+    """Relative carbon-balance error eps_rC of 40 CFR 1065.643, in rate form, as a fraction.
+
+    eps_rC = (m_Cexh - m_Cfluid - m_Cair) / (m_Cfluid + m_Cair). The exhaust carbon is the
+    fuel carbon implied by the exhaust (``fuel_mass_flow_carbon``, i.e. air flow and
+    exhaust carbon) plus the intake-air carbon, so m_Cexh - m_Cfluid - m_Cair =
+    w_C (m_fuel,carbon - m_fuel). Intake-air carbon m_Cair = n_air x_CO2,air M_C with the dry
+    air molar mass 28.96 g/mol (common practice); it is left out when ``air_dry_kg_h`` is
+    None. All rates in kg/h; ``w_c`` is the fuel carbon mass fraction.
+    """
+    m_c_fuel = w_c * np.asarray(fuel_kg_h, dtype=np.float64)
+    m_c_exh_fuel = w_c * np.asarray(fuel_carbon_kg_h, dtype=np.float64)
+    if air_dry_kg_h is None:
+        m_c_air = np.zeros_like(m_c_fuel)
+    else:
+        m_c_air = np.asarray(air_dry_kg_h, dtype=np.float64) / 28.96 * x_co2_air * 12.0107
+    with np.errstate(invalid="ignore", divide="ignore"):  # zero fuel: undefined -> NaN
+        return (m_c_exh_fuel - m_c_fuel) / (m_c_fuel + m_c_air)
+
+
+def steady_point_stats(res: ResultFile) -> pd.DataFrame:
+    """One row per steady point: number, window, clock mid-time, samples used, and the mean of
+    every quantity of :data:`POINT_QUANTITIES` present (NaN columns when absent), plus
+    ``carbon_balance_error`` (fraction, :func:`carbon_balance_error`) when the fuel flows are
+    there. Empty when the result has no steady points.
+    """
+    w = steady_windows(res)
+    n = len(w)
+    key = point_index(res, w)
+    means = _group_means(key, n, {q: series(res, q) for q in POINT_QUANTITIES})
+    out = w.copy()
+    out["t_mid_s"] = 0.5 * (out["start_s"] + out["end_s"])
+    out["samples"] = np.bincount(key[key >= 0], minlength=n) if n else np.array([], int)
+    for q, v in means.items():
+        out[q] = v
+    fuel = res.attrs.get("fuel") if isinstance(res.attrs.get("fuel"), dict) else {}
+    w_c = float(fuel.get("w_c", np.nan))
+    bal = res.attrs.get("balance") if isinstance(res.attrs.get("balance"), dict) else {}
+    x_co2 = float(bal.get("intake_co2_dry_ppm", 375.0)) * 1e-6
+    has_air = series(res, "air_dry_mass_flow") is not None
+    air = out["air_dry_mass_flow"].to_numpy() if has_air else None
+    if np.isfinite(w_c) and n:
+        out["carbon_balance_error"] = carbon_balance_error(
+            out["fuel_mass_flow"].to_numpy(), out["fuel_mass_flow_carbon"].to_numpy(), air, w_c,
+            x_co2,
+        )
+    else:
+        out["carbon_balance_error"] = out["residual_fuel_flow"]
+    return out
+
+
+def steady_blocks(res: ResultFile, block_s: float = BLOCK_S) -> pd.DataFrame:
+    """Means over blocks of ``block_s`` inside each steady point (judged samples only).
+
+    Columns: ``point`` (1-based), ``t_s`` (mean time of the block's samples), ``samples`` and
+    the mean of each quantity of :data:`POINT_QUANTITIES` present. Used to show the spread and
+    the time trend inside points without scattering every sample.
+    """
+    w = steady_windows(res)
+    idx = point_index(res, w)
+    t = res.timeseries["time"].to_numpy(dtype=np.float64)
+    use = idx >= 0
+    if not use.any():
+        return pd.DataFrame({"point": [], "t_s": [], "samples": []})
+    start = w["start_s"].to_numpy(dtype=np.float64)
+    blk = np.floor((t - start[np.clip(idx, 0, None)]) / block_s).astype(np.int64)
+    raw = np.where(use, idx.astype(np.int64) * (1 << 32) + blk, -1)
+    uniq, key = np.unique(raw[use], return_inverse=True)
+    full_key = np.full(t.size, -1, dtype=np.intp)
+    full_key[use] = key
+    m = len(uniq)
+    means = _group_means(full_key, m, {"t_s": t} | {q: series(res, q) for q in POINT_QUANTITIES})
+    out = pd.DataFrame({"point": (uniq >> 32) + 1, "samples": np.bincount(key, minlength=m)})
+    for q, v in means.items():
+        out[q] = v
+    return out
+
+
+def time_blocks(
+    res: ResultFile, name: str, block_s: float = BLOCK_S
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Block statistics of one series over steady, judged samples on a fixed ``block_s`` grid.
+
+    Returns (block mean time [s], mean, min, max) for blocks with at least one sample.
+    """
+    v = series(res, name)
+    t = res.timeseries["time"].to_numpy(dtype=np.float64)
+    use = point_index(res) >= 0
+    if v is None:
+        e = np.array([])
+        return e, e, e, e
+    use &= np.isfinite(v) & np.isfinite(t)
+    if not use.any():
+        e = np.array([])
+        return e, e, e, e
+    b = np.floor(t[use] / block_s).astype(np.int64)
+    uniq, key = np.unique(b, return_inverse=True)
+    m = len(uniq)
+    count = np.bincount(key, minlength=m)
+    tm = np.bincount(key, weights=t[use], minlength=m) / count
+    mean = np.bincount(key, weights=v[use], minlength=m) / count
+    lo = np.full(m, np.inf)
+    hi = np.full(m, -np.inf)
+    np.minimum.at(lo, key, v[use])
+    np.maximum.at(hi, key, v[use])
+    return tm, mean, lo, hi
+
+
+# ------------------------------------------------------------------------------------------
+# flags, verdicts
+# ------------------------------------------------------------------------------------------
+def _suspects(flags: pd.DataFrame) -> list[list[str]]:
+    return [[p for p in str(s).split("|") if p] for s in flags["suspect"].astype(str)]
+
+
+def point_verdicts(points: pd.DataFrame, flags: pd.DataFrame, tol: float) -> list[str]:
+    """A short verdict per steady point: ``ok``, or the fault flags overlapping it as
+    ``check: suspect``, or ``beyond +-tol`` when a flow/exhaust residual mean exceeds ``tol``
+    without a flag."""
+    n = len(points)
+    if n == 0:
+        return []
+    a = points["start_s"].to_numpy(dtype=np.float64)
+    b = points["end_s"].to_numpy(dtype=np.float64)
+    out = ["ok"] * n
+    if len(flags):
+        fault = flags[flags["check"].astype(str).isin(FAULT_CHECKS + ("out_of_range",))]
+        fs = fault["start_s"].to_numpy(dtype=np.float64)
+        fe = fault["end_s"].to_numpy(dtype=np.float64)
+        # a flag counts for a point when it covers at least MIN_OVERLAP of the point
+        cover = np.minimum(fe[None, :], b[:, None]) - np.maximum(fs[None, :], a[:, None])
+        length = np.maximum(b - a, 1.0)[:, None]
+        overlap = cover >= MIN_OVERLAP * length
+        short = {"lambda_disagreement": "disagree", "out_of_range": "range"}
+        checks = [short.get(c, c) for c in fault["check"].astype(str)]
+        sus = [x.replace("_mass_flow", "").replace("|", "/") for x in fault["suspect"].astype(str)]
+        for i in np.flatnonzero(overlap.any(axis=1)):
+            by_suspect: dict[str, list[str]] = {}
+            for j in np.flatnonzero(overlap[i]):
+                by_suspect.setdefault(sus[j], [])
+                if checks[j] not in by_suspect[sus[j]]:
+                    by_suspect[sus[j]].append(checks[j])
+            out[i] = "; ".join(
+                "+".join(sorted(c)) + (f": {x}" if x else "") for x, c in by_suspect.items()
+            )
+    worst = np.zeros(n)
+    for r in ("residual_carbon_flow", "residual_oxygen_flow", "residual_oxygen_carbon"):
+        if r in points:
+            worst = np.fmax(worst, np.abs(points[r].to_numpy(dtype=np.float64)))
+    for i in np.flatnonzero((worst > tol) & np.array([v == "ok" for v in out])):
+        out[i] = f"beyond \u00b1{100 * tol:.0f} %"
+    return out
+
+
+@dataclass
+class Verdict:
+    """The verdict on one instrument: status (``suspect``, ``shared suspect``, ``attention``,
+    ``ok``), one plain sentence, and the flag rows (indices into ``/flags/``) behind it."""
+
+    instrument: str
+    name: str
+    status: str
+    sentence: str
+    flags: list[int] = field(default_factory=list)
+
+    def as_dict(self) -> dict[str, Any]:
+        """Plain dict for the JSON summary."""
+        return {
+            "instrument": self.instrument,
+            "name": self.name,
+            "status": self.status,
+            "sentence": self.sentence,
+            "flag_rows": self.flags,
+        }
+
+
+def _fault_sentence(
+    res: ResultFile, row: pd.Series, drift: pd.DataFrame | None, span: tuple[float, float]
+) -> str:
+    """What a drift or disagreement flag means for its suspect, in plain words; ``span`` is
+    the time covered by all fault flags on the instrument (start, end) [s]."""
+    suspect = str(row["suspect"])
+    value = float(row["value"])
+    start, end = span
+    t_end = float(res.timeseries["time"].iloc[-1]) if len(res.timeseries) else np.nan
+    until = (
+        "to the end of the run"
+        if np.isfinite(t_end) and end >= t_end - 60.0
+        else f"until {clock(res, end)}"
+    )
+    est = SUSPECT_ESTIMATE.get(suspect, "")
+    what = "drifted" if row["check"] == "drift" else "disagreed with the other instruments"
+    sentence = f"{what} from {clock(res, start, with_elapsed=True)} {until}"
+    if np.isfinite(value):
+        sign = value / 100.0
+        if suspect == "co2":
+            reads = 100.0 * abs(sign) / (1.0 + sign)
+            sentence += (
+                f": it reads about {reads:.1f} % {'low' if sign > 0 else 'high'}"
+                f" (lambda_carbon moved {value:+.1f} % against the other estimates)"
+            )
+        elif suspect == "o2":
+            sentence += (
+                f": it reads {'high' if sign > 0 else 'low'}"
+                f" (lambda_oxygen moved {value:+.1f} % against the other estimates)"
+            )
+        elif suspect == "air_mass_flow|fuel_mass_flow":
+            sentence += (
+                f": the air meter reads {'high' if sign > 0 else 'low'} or the fuel meter"
+                f" reads {'low' if sign > 0 else 'high'} by about {abs(value):.1f} %"
+                " (lambda alone cannot tell which)"
+            )
+        elif suspect == "lambda_sensor":
+            sentence += f": it reads {'lean' if sign > 0 else 'rich'} by {abs(value):.1f} %"
+        elif est:
+            sentence += f" ({est} moved {value:+.1f} % against the other estimates)"
+        else:
+            sentence += f" (size {value:+.1f} %)"
+    row_start = float(row["start_s"])
+    if row["check"] == "drift" and drift is not None and len(drift) and "kind" in drift:
+        hit = drift[
+            (drift.get("detected", pd.Series(1, index=drift.index)).astype(float) > 0)
+            & np.isclose(drift["onset_s"].to_numpy(dtype=np.float64), row_start, atol=1.0)
+        ]
+        if len(hit):
+            lead = hit.iloc[0]
+            rate = float(lead.get("rate_pct_per_h", np.nan))
+            kind = str(lead.get("kind", "")) or "drift"
+            show_rate = np.isfinite(rate) and kind != "step"
+            sentence += f"; {kind} shape" + (f", {rate:+.2f} %/h" if show_rate else "")
+            sentence += f" on {lead['residual']}"
+    return sentence
+
+
+def instrument_verdicts(res: ResultFile) -> list[Verdict]:
+    """One verdict per instrument from ``/flags/`` (and ``/drift/`` for the drift shape).
+
+    Order: suspects first, then instruments needing attention, then those without a finding.
+    The core instruments (CO2 and O2 analyzers, air and fuel meters, the lambda sensor when
+    logged) always get a line; others only when a flag names them.
+    """
+    flags = res.flags
+    drift = res.tables.get("drift")
+    core = ["co2", "o2", "air_mass_flow", "fuel_mass_flow"]
+    if series(res, "lambda_sensor") is not None:
+        core.append("lambda_sensor")
+    parts = _suspects(flags) if len(flags) else []
+    names = list(core)
+    raws = list(flags["suspect"].astype(str)) if len(flags) else []
+    for row_parts, _raw in zip(parts, raws, strict=True):
+        for p in row_parts:
+            if p not in names and p != "time":
+                names.append(p)
+    checks = flags["check"].astype(str).to_numpy() if len(flags) else np.array([])
+    sev = (
+        flags["severity"].astype(str).map(_SEVERITY_RANK).fillna(0).to_numpy()
+        if len(flags)
+        else np.array([])
+    )
+    out: list[Verdict] = []
+    for name in names:
+        label = INSTRUMENT_NAMES.get(name, name)
+        own = [i for i, p in enumerate(parts) if name in p or str(flags["suspect"].iloc[i]) == name]
+        fault = [i for i in own if checks[i] in FAULT_CHECKS]
+        other = [i for i in own if checks[i] not in FAULT_CHECKS + AVAILABILITY_CHECKS]
+        gaps = [i for i in own if checks[i] in AVAILABILITY_CHECKS]
+        if fault:
+            fault.sort(key=lambda i: (-sev[i], float(flags["start_s"].iloc[i])))
+            lead = flags.iloc[fault[0]]
+            shared = "|" in str(lead["suspect"]) and name != str(lead["suspect"])
+            status = "shared suspect" if shared else "suspect"
+            starts = flags["start_s"].to_numpy(dtype=np.float64)[fault]
+            ends = flags["end_s"].to_numpy(dtype=np.float64)[fault]
+            span = (float(starts.min()), float(ends.max()))
+            sentence = f"The {label} {_fault_sentence(res, lead, drift, span)}."
+            if shared:
+                others = [INSTRUMENT_NAMES.get(p, p) for p in str(lead["suspect"]).split("|")]
+                others = [o for o in others if o != label]
+                sentence += f" Shared suspect with the {' and the '.join(others)}."
+            if len(fault) > 1:
+                sentence += f" {len(fault) - 1} further fault flag(s) name it."
+            out.append(Verdict(name, label, status, sentence, fault + other))
+        elif other:
+            other.sort(key=lambda i: (-sev[i], float(flags["start_s"].iloc[i])))
+            lead = flags.iloc[other[0]]
+            msg = str(lead["message"]).strip() or str(lead["check"])
+            sentence = (
+                f"The {label} needs attention: {lead['check']} from "
+                f"{clock(res, float(lead['start_s']))} ({msg.rstrip('.')})."
+            )
+            out.append(Verdict(name, label, "attention", sentence, other))
+        else:
+            sentence = f"The {label} agrees with the other instruments: no fault found."
+            if gaps:
+                sentence += f" No data during {len(gaps)} flagged interval(s) (see flags)."
+            out.append(Verdict(name, label, "ok", sentence, gaps))
+    rank = {"suspect": 0, "shared suspect": 1, "attention": 2, "ok": 3}
+    out.sort(key=lambda v: rank.get(v.status, 4))
+    return out
+
+
+def availability_notes(res: ResultFile) -> list[str]:
+    """One sentence per data-availability flag (gap, analyzers not sampling, clock)."""
+    flags = res.flags
+    if not len(flags):
+        return []
+    notes = []
+    for _, row in flags[flags["check"].astype(str).isin(AVAILABILITY_CHECKS)].iterrows():
+        a, b = float(row["start_s"]), float(row["end_s"])
+        what = {
+            "data_gap": "No data (logger gap)",
+            "analyzer_not_sampling": "Analyzers not sampling exhaust (zero/span/purge)",
+            "time_irregular": "Irregular time stamps",
+        }[str(row["check"])]
+        notes.append(f"{what} from {clock(res, a)} to {clock(res, b)} ({duration_text(b - a)}).")
+    return notes
+
+
+# ------------------------------------------------------------------------------------------
+# key numbers
+# ------------------------------------------------------------------------------------------
+def _integral_kg(res: ResultFile, name: str, factor: float) -> float:
+    """Time integral of a rate over the night [kg], NaN samples skipped, trapezoid rule."""
+    v = series(res, name)
+    if v is None:
+        return float("nan")
+    t = res.timeseries["time"].to_numpy(dtype=np.float64)
+    dt = np.diff(t)
+    mid = 0.5 * (v[1:] + v[:-1])
+    good = np.isfinite(mid) & np.isfinite(dt) & (dt > 0) & (dt < 60.0)
+    return float(np.sum(mid[good] * dt[good]) / 3600.0 * factor)
+
+
+def key_numbers(res: ResultFile, points: pd.DataFrame | None = None) -> dict[str, Any]:
+    """The night's key numbers for the summary (plain floats/ints/str; NaN when unknown)."""
+    t = res.timeseries["time"].to_numpy(dtype=np.float64)
+    pts = steady_point_stats(res) if points is None else points
+    judged = judged_mask(res)
+    k: dict[str, Any] = {
+        "duration_h": float((t[-1] - t[0]) / 3600.0) if t.size > 1 else 0.0,
+        "samples": int(t.size),
+        "samples_judged": int(judged.sum()),
+        "steady_points": int(len(pts)),
+        "steady_fraction": float((point_index(res) >= 0).mean()) if t.size else 0.0,
+    }
+    tol, tol_s, src = tolerance(res)
+    k["tolerance_pct"] = 100.0 * tol
+    k["tolerance_sensor_pct"] = 100.0 * tol_s
+    k["tolerance_source"] = src
+    for name in ("lambda_flow", "lambda_carbon", "lambda_oxygen", "lambda_sensor"):
+        v = series(res, name)
+        if v is not None:
+            good = judged & np.isfinite(v)
+            k[f"{name}_median"] = float(np.median(v[good])) if good.any() else float("nan")
+    al = res.group_attrs.get("alignment", {})
+    if "analyzer_delay_s" in al:
+        k["analyzer_delay_s"] = float(al["analyzer_delay_s"])
+        k["analyzer_delay_method"] = str(al.get("method", ""))
+    if len(pts) and "carbon_balance_error" in pts:
+        cbe = pts["carbon_balance_error"].to_numpy(dtype=np.float64)
+        if np.isfinite(cbe).any():
+            k["carbon_balance_error_pct_median"] = float(100.0 * np.nanmedian(cbe))
+            k["carbon_balance_error_pct_max_abs"] = float(100.0 * np.nanmax(np.abs(cbe)))
+    dew = series(res, "exhaust_dewpoint")
+    if dew is not None:
+        k["exhaust_dewpoint_max_degC"] = float(np.nanmax(dew))
+        line = series(res, "sample_line_temperature")
+        if line is not None:
+            margin = line - dew
+            k["condensation_margin_min_K"] = float(np.nanmin(margin))
+    k["fuel_used_kg"] = _integral_kg(res, "fuel_mass_flow", 1.0)
+    for name in EMISSIONS:
+        if series(res, name) is not None:
+            k[f"{name.removesuffix('_mass_flow')}_total_g"] = _integral_kg(res, name, 1.0)
+    drift = res.tables.get("drift")
+    if drift is not None and len(drift) and "residual" in drift:
+        k["residual_noise_pct"] = {
+            str(r["residual"]): float(r.get("noise_pct", np.nan)) for _, r in drift.iterrows()
+        }
+        k["min_detectable_drift_pct"] = {
+            str(r["residual"]): float(r.get("min_detectable_drift_pct", np.nan))
+            for _, r in drift.iterrows()
+        }
+    return k

@@ -1,0 +1,306 @@
+"""The one-page night summary: Markdown and PDF for people, JSON for machines.
+
+Contents, in order: the verdict per instrument in plain words (suspects first), notes on data
+availability (gaps, zero/span windows), the flags table, the key numbers, and the figures
+written or skipped with the reason. Built from a read-back result only
+(:func:`build_summary`), then written by :func:`write_markdown`, :func:`write_json` and
+:func:`write_pdf` (matplotlib's PdfPages, no extra dependency).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import textwrap
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ..result import ResultFile
+from . import reportdata as rd
+from .plots import provenance
+
+#: Page size of the PDF summary [in]: A4 portrait.
+A4_IN = (8.27, 11.69)
+
+#: Most flags listed in the Markdown/PDF table (all are in the JSON and the result file).
+MAX_FLAG_ROWS = 12
+
+#: Summary JSON schema version (bump on an incompatible change).
+SCHEMA = 1
+
+
+def _clean(v: Any) -> Any:
+    """JSON-safe: NaN/inf -> None, numpy scalars -> Python, recursively."""
+    if isinstance(v, dict):
+        return {str(k): _clean(x) for k, x in v.items()}
+    if isinstance(v, list | tuple):
+        return [_clean(x) for x in v]
+    if isinstance(v, np.generic):
+        v = v.item()
+    if isinstance(v, float) and not math.isfinite(v):
+        return None
+    return v
+
+
+def build_summary(
+    res: ResultFile, figures: list[Path] | None = None, skipped: dict[str, str] | None = None
+) -> dict[str, Any]:
+    """Everything the summary says, as a plain dict (also the JSON summary)."""
+    run, prov = provenance(res)
+    pts = rd.steady_point_stats(res)
+    verdicts = rd.instrument_verdicts(res)
+    flags = []
+    for _, row in res.flags.iterrows():
+        flags.append(
+            {
+                "start_s": float(row["start_s"]),
+                "end_s": float(row["end_s"]),
+                "start": rd.clock(res, float(row["start_s"])),
+                "end": rd.clock(res, float(row["end_s"])),
+                "check": str(row["check"]),
+                "suspect": str(row["suspect"]),
+                "severity": str(row["severity"]),
+                "value": float(row["value"]),
+                "message": str(row["message"]),
+            }
+        )
+    suspects = [v for v in verdicts if v.status in ("suspect", "shared suspect")]
+    if suspects and all(v.status == "shared suspect" for v in suspects):
+        headline = (
+            "Suspect: " + " or ".join(v.name for v in suspects) + " (the data cannot tell which)."
+        )
+    elif suspects:
+        headline = "Suspect: " + ", ".join(v.name for v in suspects) + "."
+    elif any(v.status == "attention" for v in verdicts):
+        headline = "No instrument suspect; some need attention."
+    else:
+        headline = "All instruments agree: no instrument is suspect."
+    return _clean(
+        {
+            "schema": SCHEMA,
+            "run": run,
+            "provenance": prov,
+            "description": str(res.attrs.get("run_description", "")),
+            "start_time_utc": res.start_time.isoformat() if res.start_time else None,
+            "source_file": res.attrs.get("source_file"),
+            "source_sha256": res.attrs.get("source_sha256"),
+            "tool_version": res.attrs.get("tool_version"),
+            "result_file": res.path.name if res.path else None,
+            "headline": headline,
+            "verdicts": [v.as_dict() for v in verdicts],
+            "availability": rd.availability_notes(res),
+            "flags": flags,
+            "key_numbers": rd.key_numbers(res, pts),
+            "figures": [p.name for p in figures or []],
+            "skipped_figures": dict(skipped or {}),
+            "notes": [str(w) for w in res.attrs.get("warnings", []) or []]
+            if isinstance(res.attrs.get("warnings"), list)
+            else [],
+        }
+    )
+
+
+def _num(v: Any, fmt: str, unit: str = "") -> str:
+    return "\u2013" if v is None else fmt.format(v) + unit
+
+
+def key_lines(s: dict[str, Any]) -> list[str]:
+    """The key numbers as short plain lines."""
+    k = s["key_numbers"]
+    lines = [
+        f"Run length {_num(k.get('duration_h'), '{:.1f}', ' h')}, {k.get('samples', 0)} samples, "
+        f"{k.get('steady_points', 0)} steady points "
+        f"({_num(100 * (k.get('steady_fraction') or 0), '{:.0f}', ' %')} of samples).",
+    ]
+    lams = [
+        f"{n.removeprefix('lambda_')} {k[f'{n}_median']:.3f}"
+        for n in ("lambda_flow", "lambda_carbon", "lambda_oxygen", "lambda_sensor")
+        if k.get(f"{n}_median") is not None
+    ]
+    if lams:
+        lines.append("Median lambda on valid samples: " + ", ".join(lams) + ".")
+    lines.append(
+        f"Consistency tolerance \u00b1{k['tolerance_pct']:g} % "
+        f"(sensor \u00b1{k['tolerance_sensor_pct']:g} %), from the {k['tolerance_source']}."
+    )
+    if k.get("analyzer_delay_s") is not None:
+        lines.append(
+            f"Analyzer transport delay {k['analyzer_delay_s']:.1f} s "
+            f"({k.get('analyzer_delay_method') or 'method not recorded'})."
+        )
+    if k.get("carbon_balance_error_pct_median") is not None:
+        lines.append(
+            "Carbon-balance error (40 CFR 1065.643, per steady point): median "
+            f"{k['carbon_balance_error_pct_median']:+.2f} %, largest "
+            f"{k['carbon_balance_error_pct_max_abs']:.2f} %."
+        )
+    mdd = k.get("min_detectable_drift_pct")
+    if isinstance(mdd, dict) and mdd:
+        vals = [v for v in mdd.values() if v is not None]
+        if vals:
+            span = f"{min(vals):.1f}" + (
+                f"\u2013{max(vals):.1f}" if max(vals) - min(vals) >= 0.05 else ""
+            )
+            lines.append(
+                f"Smallest detectable drift {span} % (per residual, from the night's own noise)."
+            )
+    if k.get("exhaust_dewpoint_max_degC") is not None:
+        text = f"Exhaust dew point up to {k['exhaust_dewpoint_max_degC']:.1f} \u00b0C"
+        if k.get("condensation_margin_min_K") is not None:
+            text += f"; smallest sample-line margin {k['condensation_margin_min_K']:.1f} K"
+        lines.append(text + ".")
+    tot = []
+    if k.get("fuel_used_kg") is not None:
+        tot.append(f"fuel {k['fuel_used_kg']:.1f} kg")
+    for sp, label in (("co2", "CO2"), ("co", "CO"), ("nox", "NOx"), ("thc", "THC")):
+        v = k.get(f"{sp}_total_g")
+        if v is not None:
+            tot.append(f"{label} {v / 1000:.2f} kg" if v >= 1000 else f"{label} {v:.0f} g")
+    if tot:
+        lines.append("Night totals: " + ", ".join(tot) + ".")
+    return lines
+
+
+def _flag_rows(s: dict[str, Any]) -> list[list[str]]:
+    rows = []
+    for f in s["flags"][:MAX_FLAG_ROWS]:
+        value = "" if f["value"] is None else f"{f['value']:.3g}"
+        rows.append(
+            [f["start"], f["end"], f["check"], f["suspect"].replace("|", ", ") or "\u2013",
+             f["severity"], value]
+        )
+    return rows
+
+
+def markdown(s: dict[str, Any]) -> str:
+    """The summary as Markdown text."""
+    out = [f"# Night summary \u2014 {s['run']}", "", f"*{s['provenance']}*", ""]
+    if s["description"]:
+        out += [s["description"], ""]
+    out += [f"**{s['headline']}**", "", "## Verdict per instrument", ""]
+    for v in s["verdicts"]:
+        out.append(f"- **{v['name']}: {v['status'].upper()}.** {v['sentence']}")
+    if s["availability"]:
+        out += ["", "## Data availability", ""]
+        out += [f"- {n}" for n in s["availability"]]
+    out += ["", "## Flags", ""]
+    if s["flags"]:
+        out += ["| from | to | check | suspect | severity | value |", "|---|---|---|---|---|---|"]
+        out += ["| " + " | ".join(r) + " |" for r in _flag_rows(s)]
+        if len(s["flags"]) > MAX_FLAG_ROWS:
+            out.append(f"\n{len(s['flags']) - MAX_FLAG_ROWS} more flags in the JSON summary.")
+        out += ["", "Messages:", ""]
+        out += [f"{i + 1}. {f['message']}" for i, f in enumerate(s["flags"][:MAX_FLAG_ROWS])]
+    else:
+        out.append("No flags.")
+    out += ["", "## Key numbers", ""] + [f"- {line}" for line in key_lines(s)]
+    out += ["", "## Figures", ""]
+    out += [f"- `{name}`" for name in s["figures"]] or ["- none (figures not requested)"]
+    out += [f"- {name}: skipped \u2014 {why}" for name, why in s["skipped_figures"].items()]
+    if s["notes"]:
+        out += ["", "## Notes from reading the log", ""] + [f"- {n}" for n in s["notes"]]
+    out += ["", f"Result file: `{s['result_file']}`; source SHA-256 `{s['source_sha256']}`."]
+    return "\n".join(out) + "\n"
+
+
+def write_markdown(s: dict[str, Any], path: Path) -> Path:
+    """Write the Markdown summary."""
+    path = Path(path)
+    path.write_text(markdown(s), encoding="utf-8")
+    return path
+
+
+def write_json(s: dict[str, Any], path: Path) -> Path:
+    """Write the JSON summary (UTF-8, sorted keys, NaN as null)."""
+    path = Path(path)
+    path.write_text(json.dumps(s, indent=2, sort_keys=True, ensure_ascii=False) + "\n",
+                    encoding="utf-8")
+    return path
+
+
+class _Page:
+    """A text cursor on one A4 page (inches from the top), wrapping by character count."""
+
+    def __init__(self, fig: Any) -> None:
+        self.fig = fig
+        self.y = 0.55
+        self.left = 0.6
+        self.width = A4_IN[0] - 2 * self.left
+
+    def text(self, s: str, size: float = 8.5, weight: str = "normal", indent: float = 0.0,
+             color: str = "#111111", gap: float = 0.04, style: str = "normal") -> None:
+        chars = max(20, int((self.width - indent) * 72 / (size * 0.55)))
+        for line in textwrap.wrap(s, chars) or [""]:
+            if self.y > A4_IN[1] - 0.45:
+                return
+            self.fig.text((self.left + indent) / A4_IN[0], 1 - self.y / A4_IN[1], line,
+                          fontsize=size, weight=weight, color=color, va="top", style=style)
+            self.y += size * 1.32 / 72
+        self.y += gap
+
+    def table(self, header: list[str], rows: list[list[str]], widths: list[float]) -> None:
+        size = 7.5
+        x = self.left
+        xs = []
+        for w in widths:
+            xs.append(x)
+            x += w
+        for r, row in enumerate([header, *rows]):
+            if self.y > A4_IN[1] - 0.5:
+                return
+            for xi, cell, w in zip(xs, row, widths, strict=True):
+                chars = max(4, int(w * 72 / (size * 0.55)))
+                cell = cell if len(cell) <= chars else cell[: chars - 1] + "\u2026"
+                self.fig.text(xi / A4_IN[0], 1 - self.y / A4_IN[1], cell, fontsize=size,
+                              weight="bold" if r == 0 else "normal", va="top")
+            self.y += size * 1.4 / 72
+        self.y += 0.06
+
+
+def write_pdf(s: dict[str, Any], path: Path) -> Path:
+    """Write the one-page PDF summary (A4 portrait, matplotlib PdfPages, reproducible)."""
+    from matplotlib.backends.backend_pdf import PdfPages
+    from matplotlib.figure import Figure
+
+    path = Path(path)
+    fig = Figure(figsize=A4_IN)
+    p = _Page(fig)
+    p.text(f"Night summary \u2014 {s['run']}", size=15, weight="bold", gap=0.02)
+    p.text(s["provenance"], size=7.5, color="#333333")
+    if s["description"]:
+        p.text(s["description"], size=8.5, color="#333333", gap=0.08)
+    p.text(s["headline"], size=11, weight="bold", gap=0.1)
+    p.text("Verdict per instrument", size=11, weight="bold")
+    for v in s["verdicts"]:
+        p.text(f"{v['name']}: {v['status'].upper()}", size=8.5, weight="bold", gap=0.0)
+        p.text(v["sentence"], size=8.5, indent=0.2, gap=0.05)
+    if s["availability"]:
+        p.text("Data availability", size=11, weight="bold")
+        for n in s["availability"]:
+            p.text("\u2022 " + n, size=8.5, indent=0.1, gap=0.0)
+        p.y += 0.08
+    p.text("Flags", size=11, weight="bold")
+    if s["flags"]:
+        p.table(["from", "to", "check", "suspect", "severity", "value"], _flag_rows(s),
+                [0.85, 0.85, 1.65, 2.2, 0.8, 0.7])
+        if len(s["flags"]) > MAX_FLAG_ROWS:
+            p.text(f"{len(s['flags']) - MAX_FLAG_ROWS} more flags in the JSON summary.",
+                   size=8)
+    else:
+        p.text("No flags.", size=8.5)
+    p.text("Key numbers", size=11, weight="bold")
+    for line in key_lines(s):
+        p.text("\u2022 " + line, size=8.5, indent=0.1, gap=0.0)
+    p.y += 0.08
+    p.text("Figures", size=11, weight="bold")
+    names = ", ".join(s["figures"]) if s["figures"] else "none (figures not requested)"
+    p.text(names, size=7.5, gap=0.02)
+    for name, why in s["skipped_figures"].items():
+        p.text(f"skipped {name}: {why}", size=7.5, gap=0.0)
+    meta = {"Title": f"dynoqc night summary: {s['run']}", "Creator": None, "Producer": None,
+            "CreationDate": None}
+    with PdfPages(path, metadata=meta) as pdf:
+        pdf.savefig(fig)
+    return path

@@ -1,0 +1,111 @@
+"""Figure "water": exhaust dew point against the sample-line temperature, condensation margin.
+
+Top: ``exhaust_dewpoint`` and ``sample_line_temperature`` against time (min/max envelope and
+bin mean), with ``condensation_risk`` flags shaded. Bottom: the margin (line temperature minus
+dew point) in K with the zero line; below zero, water condenses in the line and the
+analyzers read wrong. When the sample-line temperature is not logged the figure is skipped
+(the dew point alone says nothing about condensation in this cell); the summary notes why.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+from matplotlib.lines import Line2D
+from matplotlib.patches import Patch
+
+from ..result import ResultFile
+from . import reportdata as rd
+from .plots import (
+    BINS_PER_PIXEL,
+    DPI,
+    WIDTH_IN,
+    FigureSkipped,
+    bin_mean,
+    envelope,
+    format_time_axis,
+    night_x,
+    report_figure,
+    save,
+)
+
+#: File name part of this figure.
+NAME = "water"
+
+#: Minimum condensation margin [K] drawn as a guide: common practice keeps heated lines
+#: well above the dew point; 10 K is a usual rule of thumb (from memory).
+GUIDE_MARGIN_K = 10.0
+
+
+def water_data(res: ResultFile) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(time [s], exhaust dew point [degC], margin = line temperature - dew point [K]).
+
+    Raises :class:`FigureSkipped` when either series is absent.
+    """
+    dew = rd.series(res, "exhaust_dewpoint")
+    line = rd.series(res, "sample_line_temperature")
+    if dew is None:
+        raise FigureSkipped("no exhaust dew point in the result")
+    if line is None:
+        raise FigureSkipped(
+            "sample_line_temperature not logged, so the condensation margin cannot be shown "
+            f"(exhaust dew point peaks at {np.nanmax(dew):.1f} \u00b0C)"
+        )
+    t = res.timeseries["time"].to_numpy(dtype=np.float64)
+    return t, dew, line - dew
+
+
+def _trace(ax, x, v, n_bins, color, ls):  # noqa: ANN001, ANN202 - local drawing helper
+    ex, ey = envelope(x, v, n_bins)
+    ax.plot(ex, ey, color=color, linewidth=0.5, alpha=0.35)
+    mx, my = bin_mean(x, v, min(n_bins, max(1, v.size // 2)))
+    ax.plot(mx, my, color=color, linestyle=ls, linewidth=1.4)
+
+
+def plot_water(res: ResultFile, out_png: Path) -> Path:
+    """Write the water figure (1600 x 960 px)."""
+    t, dew, margin = water_data(res)
+    line = dew + margin
+    conv, _, _ = night_x(res)
+    x = conv(t)
+    n_bins = max(1, int(BINS_PER_PIXEL * WIDTH_IN * DPI) // 2)
+    with report_figure(res, "Exhaust water: dew point and sample-line margin", 4.8) as body:
+        ax, axm = body.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": [1.4, 1]})
+        _trace(ax, x, line, n_bins, "#0072B2", "-")
+        _trace(ax, x, dew, n_bins, "#D55E00", "--")
+        ax.set_ylabel("temperature (\u00b0C)")
+        _trace(axm, x, margin, n_bins, "#000000", "-")
+        axm.axhline(0.0, color="#D55E00", linewidth=1.0)
+        axm.axhline(GUIDE_MARGIN_K, color="#555555", linewidth=0.8, linestyle=(0, (4, 3)))
+        axm.set_ylabel("margin (K)")
+        axm.fill_between([x[0], x[-1]], [0, 0], [-1e3, -1e3], color="#fbe3d6", zorder=0)
+        lo = min(-2.0, float(np.nanpercentile(margin, 0.5)) - 2.0)
+        hi = max(GUIDE_MARGIN_K + 5.0, float(np.nanpercentile(margin, 99.5)) + 2.0)
+        axm.set_ylim(lo, hi)
+        flags = res.flags
+        risk = flags[flags["check"].astype(str) == "condensation_risk"] if len(flags) else flags
+        for _, row in risk.iterrows():
+            for a in (ax, axm):
+                a.axvspan(conv(row["start_s"]), conv(row["end_s"]), color="#f4a582", alpha=0.4,
+                          linewidth=0)
+        axm.set_xlim(x[0], x[-1])
+        format_time_axis(res, axm)
+        handles = [
+            Line2D([], [], color="#0072B2", linewidth=1.4, label="sample line temperature"),
+            Line2D([], [], color="#D55E00", linestyle="--", linewidth=1.4,
+                   label="exhaust dew point"),
+            Line2D([], [], color="#000000", linewidth=1.4, label="margin = line \u2212 dew point"),
+            Line2D([], [], color="#555555", linewidth=0.8, linestyle=(0, (4, 3)),
+                   label=f"{GUIDE_MARGIN_K:g} K guide margin"),
+            Patch(facecolor="#fbe3d6", label="condensation (margin < 0)"),
+        ]
+        if len(risk):
+            handles.append(Patch(facecolor="#f4a582", alpha=0.4, label="condensation_risk flag"))
+        body.legend(handles=handles, loc="outside lower center", ncols=3, fontsize=7.5)
+        return save(body, out_png)
+
+
+def figure(res: ResultFile, out_dir: Path, stem: str) -> list[Path]:
+    """Render this figure for the report (raises FigureSkipped when it cannot be made)."""
+    return [plot_water(res, Path(out_dir) / f"{stem}_{NAME}.png")]
