@@ -38,6 +38,7 @@ def night_summary(outcome: NightOutcome) -> list[str]:
         lines.append("  flags: none")
     for note in res.attrs.get("warnings", []):
         lines.append(f"  note: {note}")
-    for fig in outcome.figures:
-        lines.append(f"  figure: {fig}")
+    for path in outcome.figures:
+        kind = "figure" if path.suffix == ".png" else "summary"
+        lines.append(f"  {kind}: {path}")
     return lines
