@@ -44,6 +44,7 @@ _INPUTS = [
     Quantity("intake_humidity", "g/kg", "intake air humidity, g water per kg dry air", "ambient"),
     Quantity("exhaust_pressure", "kPa", "exhaust (sample) absolute pressure", "ambient"),
     Quantity("sample_line_temperature", "degC", "sample line temperature", "ambient"),
+    Quantity("dryer_dewpoint", "degC", "sample dryer (chiller) outlet dew point", "ambient"),
     Quantity("analyzer_mode", "1", "analyzer status code (0 = sampling exhaust)", "status"),
 ]
 

@@ -93,6 +93,7 @@ _DIMENSION: dict[str, str] = {
     "intake_humidity": "humidity_ratio",
     "exhaust_pressure": "pressure",
     "sample_line_temperature": "temperature",
+    "dryer_dewpoint": "temperature",
     "analyzer_mode": "code",
 }
 

@@ -150,3 +150,21 @@ def test_span_gas_without_mode_channel_is_not_taken_for_exhaust():
     assert sampling[35:65].sum() == 0 and sampling[:35].all() and sampling[65:].all()
     assert np.isnan(out.derived["lambda_oxygen"].to_numpy()[40:60]).all()
     assert "span gas" in out.flags["message"].iloc[0]
+
+
+def test_logged_dryer_dewpoint_channel_sets_the_sample_water():
+    # 40 CFR 1065.645(b): water after the chiller = p_sat(T_dew) / p. Readings taken after a
+    # 4 degC chiller (x = 0.8 % at 101.325 kPa) and corrected with the logged dew point give
+    # the same lambda as bone-dry readings.
+    from pipeline.balance.humidity import x_h2o_from_dewpoint
+
+    frame, _ = _frame(n=50)
+    dry = compute_balance(frame, _config()).derived["lambda_carbon"].to_numpy()
+    x_w = float(x_h2o_from_dewpoint(4.0, 101.325))
+    wet_sample = frame.copy()
+    for g in ("co2", "co", "o2", "nox"):
+        wet_sample[g] = frame[g] * (1 - x_w)
+    wet_sample["dryer_dewpoint"] = 4.0
+    cfg = _config(channels={"dryer_dewpoint": {"column": "dp", "unit": "degC"}})
+    lam = compute_balance(wet_sample, cfg).derived["lambda_carbon"].to_numpy()
+    np.testing.assert_allclose(lam, dry, rtol=1e-9)

@@ -154,9 +154,14 @@ def compute_balance(
     p_amb = _col(frame, "ambient_pressure")
     if p_amb is None:
         p_amb = np.full(n, C.P_STD_KPA)
-    if s.dryer_dewpoint_degC is not None:
-        p_dryer = s.dryer_pressure_kPa if s.dryer_pressure_kPa is not None else p_amb
-        x_h2o_dryer = x_h2o_from_dewpoint(s.dryer_dewpoint_degC, p_dryer) * np.ones(n)
+    # Water left in dry-basis samples (40 CFR 1065.659 / 1065.645): from a logged dryer
+    # dew point, else the configured one, else none.
+    p_dryer = s.dryer_pressure_kPa if s.dryer_pressure_kPa is not None else p_amb
+    dryer_dew = _col(frame, "dryer_dewpoint")
+    if dryer_dew is None and s.dryer_dewpoint_degC is not None:
+        dryer_dew = np.full(n, s.dryer_dewpoint_degC)
+    if dryer_dew is not None:
+        x_h2o_dryer = np.nan_to_num(x_h2o_from_dewpoint(dryer_dew, p_dryer) * np.ones(n))
     else:
         x_h2o_dryer = np.zeros(n)
 
