@@ -121,3 +121,44 @@ def test_console_script_version_and_help_are_light():
              "'scipy') if m in sys.modules]; print(heavy)")
     out = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "[]"
+
+
+def test_results_do_not_depend_on_the_input_units(tmp_path):
+    # Invariance: the same night logged with fuel in g/s, air in kg/s, CO2 in ppm and
+    # pressure in mbar (exact unit definitions: 1 kg/h = 1/3.6 g/s, 1 % = 10^4 ppm,
+    # 1 kPa = 10 mbar) gives the same lambdas and flags.
+    import tomllib
+
+    import pandas as pd
+
+    from pipeline.config import parse_config
+
+    sys.path.insert(0, str(ROOT / "sample_runs"))
+    from make_sample_runs import METADATA, cell_b3_scenario
+
+    from pipeline.simulate import make_night, write_csv
+
+    sc = dataclasses.replace(cell_b3_scenario(), duration_h=3.0, cal_windows=[], dropouts=[])
+    log, _ = make_night(sc)
+    a = write_csv(log, tmp_path / "a.csv", units=log.attrs["units"], metadata=METADATA)
+    units = dict(log.attrs["units"])
+    other = log.copy()
+    other["fuel_flow"] = log["fuel_flow"] / 3.6
+    other["air_flow"] = log["air_flow"] / 3600.0
+    other["co2_dry"] = log["co2_dry"] * 1e4
+    other["baro"] = log["baro"] * 10.0
+    units.update(fuel_flow="g/s", air_flow="kg/s", co2_dry="ppm", baro="mbar")
+    b = write_csv(other, tmp_path / "b.csv", units=units, metadata=METADATA)
+    raw = tomllib.loads(CONFIG.read_text())
+    cfg_a = parse_config(raw, CONFIG)
+    raw["channels"]["fuel_mass_flow"]["unit"] = "g/s"
+    raw["channels"]["air_mass_flow"]["unit"] = "kg/s"
+    raw["channels"]["co2"]["unit"] = "ppm"
+    raw["channels"]["ambient_pressure"]["unit"] = "mbar"
+    cfg_b = parse_config(raw, CONFIG)
+    ra, rb = pipeline.process_run(a, cfg_a), pipeline.process_run(b, cfg_b)
+    # The logger file is written with a fixed number of decimals per unit, so the two files
+    # differ by that rounding (about 1e-5 relative), not by more.
+    for name in ("lambda_flow", "lambda_carbon", "lambda_oxygen", "co2_mass_flow"):
+        np.testing.assert_allclose(rb.series[name], ra.series[name], rtol=1e-4, equal_nan=True)
+    pd.testing.assert_frame_equal(ra.flags, rb.flags)
