@@ -276,12 +276,20 @@ def test_missing_column_message(tmp_path: Path) -> None:
         read_run(path, make_config())
 
 
-def test_wrong_dimension_unit(tmp_path: Path) -> None:
-    text = "t,fuel,air,co2,o2,trq\n0,1,2,3,4,5\n1,1,2,3,4,5\n2,1,2,3,4,5\n"
-    cfg = make_config({"torque": {"column": "trq", "unit": "kg/h"}})
-    with pytest.raises(ConfigError, match=r"\[channels.torque\] unit: unit 'kg/h' is a mass flow "
-                                          r"unit, but torque needs a torque unit"):
-        read_run(write(tmp_path / "s.csv", text), cfg)
+def test_wrong_dimension_unit_found_at_config_load() -> None:
+    with pytest.raises(ConfigError, match=r"test.toml: \[channels.torque\] unit: unit 'kg/h' is a "
+                                          r"mass flow unit, but torque needs a torque unit"):
+        make_config({"torque": {"column": "trq", "unit": "kg/h"}})
+
+
+def test_wrong_dimension_unit_in_file_with_implicit_config_unit(tmp_path: Path) -> None:
+    # The config leaves lambda_sensor's unit implicit; the file's units row says kg/h: that
+    # unit does not fit, so the config's (canonical) unit is used and nothing is converted.
+    text = ("t,fuel,air,co2,o2,lam\ns,kg/h,kg/h,%,%,kg/h\n"
+            "0,1,2,3,4,1.5\n1,1,2,3,4,1.5\n2,1,2,3,4,1.5\n")
+    run = read_run(write(tmp_path / "s.csv", text),
+                   make_config({"lambda_sensor": {"column": "lam"}}))
+    np.testing.assert_allclose(run.frame["lambda_sensor"], 1.5)
 
 
 def test_decimal_mismatch_names_column_and_found(tmp_path: Path) -> None:
@@ -299,17 +307,20 @@ def test_optional_channel_empty_warns(tmp_path: Path) -> None:
     assert any("'nox' (nox) holds no numbers" in w for w in run.meta.warnings)
 
 
-def test_time_policy_nan_duplicates_and_restart(tmp_path: Path) -> None:
+def test_time_policy_nan_duplicates_spike_and_restart(tmp_path: Path) -> None:
     text = "t,fuel,air,co2,o2\n" + "".join(
         f"{t},{i},2,3,4\n" for i, t in enumerate(["0", "1", "1", "2", "", "0", "1", "0.5"])
     )
     run = read_run(write(tmp_path / "v.csv", text), make_config())
-    # Kept rows in file order: 0, 1, (dup 1 dropped), 2, (no time dropped), restart 0 -> 3,
-    # 1 -> 4, restart 0.5 -> 5 (one median interval, 1 s, after the previous sample).
-    np.testing.assert_allclose(run.frame["time"], [0, 1, 2, 3, 4, 5])
-    np.testing.assert_allclose(run.frame["fuel_mass_flow"], [0, 1, 3, 5, 6, 7])
-    assert run.meta.rows_read == 8 and run.meta.rows_dropped == 2
-    assert any("backwards 2 time(s)" in w for w in run.meta.warnings)
+    # Kept rows in file order: 0, 1, (dup 1 dropped), 2, (no time dropped), restart 0 -> 3
+    # (one median interval, 1 s, after the previous sample), (1 is a spike between 0 and 0.5:
+    # dropped), 0.5 -> 3.5.
+    np.testing.assert_allclose(run.frame["time"], [0, 1, 2, 3, 3.5])
+    np.testing.assert_allclose(run.frame["fuel_mass_flow"], [0, 1, 3, 5, 7])
+    assert run.meta.rows_read == 8 and run.meta.rows_dropped == 3
+    assert len(run.frame) == run.meta.rows_read - run.meta.rows_dropped
+    assert any("backwards 1 time(s)" in w for w in run.meta.warnings)
+    assert any("1 row(s) written out of order" in w for w in run.meta.warnings)
     assert any("repeating the previous row's time" in w for w in run.meta.warnings)
     assert any("without a readable time" in w for w in run.meta.warnings)
 
@@ -321,6 +332,29 @@ def test_monotone_time_vectorised_policy() -> None:
     np.testing.assert_array_equal(idx, [0, 1, 2, 4, 5, 7])
     assert stats["duplicates"] == 2 and stats["restarts"] == 1
     assert np.all(np.diff(new) > 0)
+
+
+def test_swapped_rows_are_dropped_not_shifted() -> None:
+    t = np.arange(100.0)
+    t[[40, 41]] = t[[41, 40]]
+    new, idx, stats = monotone_time(t)
+    assert stats == {"duplicates": 0, "out_of_order": 1, "restarts": 0, "interval": 1.0}
+    # Every kept row keeps its own time: nothing after the swap is shifted.
+    np.testing.assert_array_equal(new, t[idx])
+    assert idx.size == 99
+
+
+def test_time_spike_dropped_and_nested_restarts_follow_on() -> None:
+    t = np.concatenate([np.arange(100.0), np.arange(50.0), np.arange(30.0)])
+    t[10] = 1e6  # one garbage time stamp
+    t[120], t[121] = t[121], t[120]  # a swap inside the first restarted segment
+    new, idx, stats = monotone_time(t)
+    assert stats["out_of_order"] == 2 and stats["restarts"] == 2
+    assert np.all(np.diff(new) > 0)
+    assert idx.size == t.size - 2
+    # The restarted segments follow on one interval after the previous segment's end.
+    np.testing.assert_allclose(new[98:100], [99.0, 100.0])  # row 10 was dropped
+    np.testing.assert_allclose(new[-1], 99 + 1 + 49 + 1 + 29)
 
 
 def test_thc_carbon_number_and_value_channel(tmp_path: Path) -> None:
@@ -379,12 +413,13 @@ MARKERS = ["", "NaN", "---", "#N/A", "NA", "n/a", "nan"]
 @st.composite
 def logger_files(draw: st.DrawFn) -> tuple[str, np.ndarray, dict[str, Any]]:
     n = draw(st.integers(min_value=3, max_value=30))
-    values = np.array(
-        draw(st.lists(
-            st.floats(min_value=-1e6, max_value=1e6, allow_nan=False, allow_subnormal=False),
-            min_size=4 * n, max_size=4 * n,
-        ))
-    ).reshape(n, 4)
+    # Within the physical limits of ingest (flows in kg/h; co2, o2 in % up to 100 %).
+    bounds = [(-1e3, 1e6), (-1e4, 1e6), (-100.0, 100.0), (-100.0, 100.0)]
+    values = np.array([
+        [draw(st.floats(min_value=lo, max_value=hi, allow_nan=False, allow_subnormal=False))
+         for lo, hi in bounds]
+        for _ in range(n)
+    ]).reshape(n, 4)
     mask = np.array(draw(st.lists(st.booleans(), min_size=4 * n, max_size=4 * n))).reshape(n, 4)
     # Keep at least one number in the must-have flow columns.
     mask[0, :2] = False

@@ -1,52 +1,142 @@
 """Ingest stage: read a logger export, map its columns, convert to canonical units.
 
-Public entry point :func:`read_run`. Layout detection is in :mod:`.sniff` (also used by
-``dynoqc inspect``), parsing in :mod:`.csv`.
+Public entry point :func:`read_run`. The file format is found from the file's first bytes
+(:func:`detect_format`): CSV/TSV text (layout detection in :mod:`.sniff`, also used by
+``dynoqc inspect``; parsing in :mod:`.csv`), Apache Parquet (:mod:`.parquet`) or ASAM MDF4
+(:mod:`.mdf`, optional ``mdf`` extra). Mapping, units, cell counts and the time base are
+shared by all formats (:mod:`.table`).
 """
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
-from ..config import Config
+from ..config import Config, InputOptions
 from ..data import RunData
-from .csv import monotone_time, read_csv_run, split_name_unit
+from ..errors import InputDataError
+from .csv import read_csv_run
 from .sniff import MISSING_MARKERS, Layout, sniff
+from .table import PHYSICAL_LIMITS, Source, monotone_time, split_name_unit
 
-__all__ = ["MISSING_MARKERS", "Layout", "monotone_time", "read_run", "sniff", "split_name_unit"]
+__all__ = [
+    "MISSING_MARKERS", "PHYSICAL_LIMITS", "Layout", "Source", "detect_format", "monotone_time",
+    "open_source", "read_run", "sniff", "split_name_unit",
+]
+
+_SUFFIX_FORMAT = {".parquet": "parquet", ".pq": "parquet", ".mf4": "mdf", ".mdf": "mdf"}
+
+
+def detect_format(path: Path) -> str:
+    """``"csv"``, ``"parquet"`` or ``"mdf"`` from the file's first bytes (magic numbers).
+
+    Raises InputDataError for a missing, empty or non-regular file, and for a file whose name
+    promises Parquet or MDF but whose content is not.
+    """
+    path = Path(path)
+    if not path.exists():
+        raise InputDataError(f"{path}: file not found.")
+    if not path.is_file():
+        raise InputDataError(f"{path}: not a file.")
+    if path.stat().st_size == 0:
+        raise InputDataError(f"{path}: the file is empty.")
+    with open(path, "rb") as fh:
+        magic = fh.read(8)
+    if magic[:4] == b"PAR1":
+        return "parquet"
+    if magic[:3] in (b"MDF", b"UnF"):  # "MDF     " (finalised) / "UnFinMF " (unfinalised)
+        return "mdf"
+    expected = _SUFFIX_FORMAT.get(path.suffix.lower())
+    if expected is not None:
+        what = "a Parquet" if expected == "parquet" else "an ASAM MDF"
+        raise InputDataError(
+            f"{path}: the name says {what} file, but the content is not one (its first bytes "
+            f"are {magic!r})."
+        )
+    return "csv"
 
 
 def read_run(path: Path, config: Config) -> RunData:
     """Read one logged run into canonical units on one time base.
 
-    Reads CSV/TSV text exports (``,`` ``;`` tab or ``|`` delimited; UTF-8, UTF-8 with BOM,
-    UTF-16 with BOM or cp1252), plain or gzip-compressed (``.csv.gz``), with optional
-    comment/metadata lines (``#``, ``//``, ``key: value``, ``key;value``) above a names row
-    and an optional units row (or units in the names: ``Speed [rpm]``, ``Speed (rpm)``,
-    ``Speed/rpm``). ``[input]`` in the config overrides the detected delimiter, decimal mark,
-    encoding and units row.
+    Formats (found from the content, :func:`detect_format`):
+
+    - CSV/TSV text exports (``,`` ``;`` tab or ``|`` delimited; UTF-8, UTF-8 with BOM, UTF-16
+      with BOM, cp1252/Latin-1), plain or gzip-compressed (``.csv.gz``), with optional
+      comment/metadata lines (``#``, ``//``, ``key: value``, ``key;value``) above a names row
+      and an optional units row (or units in the names: ``Speed [rpm]``, ``Speed (rpm)``,
+      ``Speed/rpm``). ``[input]`` in the config overrides the detected delimiter, decimal
+      mark, encoding and units row.
+    - Apache Parquet: units from the config, else from the field metadata (``unit`` /
+      ``units``); schema metadata as the file's metadata (:mod:`.parquet`).
+    - ASAM MDF4 through asammdf (``pip install 'dynoqc[mdf]'``): units from the channel
+      metadata, one explicit raster, duplicate channel names resolved and reported, the
+      header start time kept (:mod:`.mdf`).
 
     The result frame has float64 ``time`` (s) and one float64 column per mapped quantity in
     canonical units (quantities.INPUTS; THC multiplied by its ``carbon_number`` to a C1
     basis; ``value`` channels as constant columns), on a RangeIndex.
 
     Cells policy: empty cells and the markers in :data:`MISSING_MARKERS` are missing values
-    (counted per column in ``meta.warnings``); other non-numeric cells (and infinities) become
-    NaN and are counted in ``meta.bad_cells`` with a warning naming the column and an example.
+    (counted per column in ``meta.warnings``); other non-numeric cells, infinities and
+    readings outside :data:`PHYSICAL_LIMITS` (logger sentinels such as -9999 or 1e30) become
+    NaN and are counted per quantity in ``meta.bad_cells`` with a warning naming the column
+    and an example. Negative flows and concentrations are kept as logged and counted in a
+    warning; rows where the fuel flow reads zero or less are counted in a warning (lambda
+    from the flows is NaN there). A channel other than time and the two flows may be entirely
+    empty (a warning; its derived values are NaN).
 
     Time policy (see :func:`monotone_time`): time is elapsed seconds converted with the
-    channel's unit (``format = "seconds"``) or ISO 8601 time stamps (``format = "iso8601"``,
-    detected when not given), then seconds from the first sample with ``meta.start_time`` the
-    first time stamp in UTC. For elapsed seconds the values are kept as logged and a metadata
-    line ``start_time`` / ``start`` / ``date`` (ISO 8601) sets ``meta.start_time``. Naive time
-    stamps are read in ``[input] timezone`` (else taken as UTC, with a warning). Rows without
-    a readable time are dropped; rows repeating the previous time are dropped (first kept); a
-    backward step in time is taken as a logger restart and the segment is shifted to follow
-    on. Every dropped row is counted in ``meta.rows_dropped`` with a warning.
+    channel's unit (``format = "seconds"``) or ISO 8601 time stamps / a timestamp column
+    (``format = "iso8601"``, detected when not given), then seconds from the first sample
+    with ``meta.start_time`` the first time stamp in UTC. For elapsed seconds the values are
+    kept as logged and the start time comes from the container (MDF header) or a metadata
+    line ``start_time`` / ``start`` / ``date`` (ISO 8601). Naive time stamps are read in
+    ``[input] timezone`` (else taken as UTC, with a warning). Rows without a readable time are
+    dropped; rows repeating the previous time are dropped (first kept); a backward step in
+    time is taken as a logger restart and the segment is shifted to follow on. Every dropped
+    row is counted in ``meta.rows_dropped`` with a warning, so ``rows_read - rows_dropped``
+    is the number of rows of the frame.
 
     Raises InputDataError (exit 3) for a missing, empty, binary or header-only file, a mapped
     column not in the file (with close matches), or a time/fuel/air flow column without any
-    number; ConfigError (exit 2) for a unit that does not fit its quantity. The input file is
-    only read, never written.
+    number; ConfigError (exit 2) for a unit that does not fit its quantity or a missing
+    optional reader (asammdf). The input file is only read, never written.
     """
-    return read_csv_run(Path(path), config)
+    path = Path(path)
+    fmt = detect_format(path)
+    if fmt == "parquet":
+        from .parquet import read_parquet_run
+
+        return read_parquet_run(path, config)
+    if fmt == "mdf":
+        from .mdf import read_mdf_run
+
+        return read_mdf_run(path, config)
+    return read_csv_run(path, config)
+
+
+@contextmanager
+def open_source(path: Path, options: InputOptions | None = None) -> Iterator[Source]:
+    """The file as a :class:`~pipeline.ingest.table.Source` of any supported format (used by
+    ``dynoqc inspect`` to see every column); the file is closed on exit."""
+    path = Path(path)
+    options = options or InputOptions()
+    fmt = detect_format(path)
+    if fmt == "parquet":
+        from .parquet import parquet_source
+
+        yield parquet_source(path)
+    elif fmt == "mdf":
+        from .mdf import mdf_source, open_mdf
+
+        mdf = open_mdf(path)
+        try:
+            yield mdf_source(path, options, mdf)
+        finally:
+            mdf.close()
+    else:
+        from .csv import csv_source
+
+        yield csv_source(path, sniff(path, options))

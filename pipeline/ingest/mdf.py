@@ -1,0 +1,289 @@
+"""Read ASAM MDF4 measurement files through ``asammdf`` (optional ``mdf`` extra).
+
+asammdf is imported lazily (it is LGPL and heavy); without it, reading an MDF file ends with a
+message telling how to install the extra.
+
+How an MDF file becomes one table (our policy):
+
+- Only the mapped channels are read (``MDF.select``), never the whole file.
+- Units are those of the channel metadata (``Signal.unit``), used when the config leaves a
+  channel's unit implicit; an explicit config unit that disagrees is reported.
+- The channels are put on one explicit time raster: ``[input] raster_s`` when given, else the
+  median sample interval of the fastest mapped channel. The raster runs from the earliest to
+  the latest sample of the mapped channels. Float channels are interpolated linearly; integer
+  channels (status codes) hold their previous sample. A raster point before a channel's first
+  or after its last sample, or inside a hole of more than 2.5 of the channel's own median
+  intervals, is NaN (missing), never extrapolated or bridged.
+- Time: the raster, in seconds relative to the file's start time, which is the run's absolute
+  start (``meta.start_time``). The configured time column may name a master channel (e.g.
+  ``time``); if it names nothing in the file, the raster is used with a note.
+- Duplicate channel names (the same name in several channel groups): ``column = "name"``
+  takes the occurrence with the most samples (the first of equals) and says so; each one is
+  also available as ``name@<group index>``, e.g. ``column = "T_oil@2"``.
+"""
+
+from __future__ import annotations
+
+import gc
+import re
+import sys
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ..config import Config, InputOptions
+from ..data import RunData
+from ..errors import ConfigError, InputDataError
+from .table import Source, build_run
+
+#: Raster points beyond this are refused (a raster too fine for the file's time span).
+MAX_RASTER_POINTS = 50_000_000
+
+#: A hole in a channel longer than this many of its median intervals is not bridged.
+GAP_FACTOR = 2.5
+
+INSTALL_HINT = "install the mdf extra: pip install 'dynoqc[mdf]'"
+
+
+def import_asammdf(path: Path) -> Any:
+    """The ``asammdf`` module, or ConfigError (exit 2) telling how to install it."""
+    try:
+        import asammdf
+    except ImportError:
+        raise ConfigError(
+            f"{path}: reading ASAM MDF files needs the optional package asammdf; "
+            f"{INSTALL_HINT}."
+        ) from None
+    return asammdf
+
+
+def resample(
+    ts: np.ndarray, values: np.ndarray, grid: np.ndarray, hold: bool
+) -> np.ndarray:
+    """Values of one channel on ``grid`` (vectorised): linear or previous-sample hold, NaN
+    outside the channel's span and inside holes longer than GAP_FACTOR median intervals."""
+    ts = np.asarray(ts, dtype=np.float64)
+    v = np.asarray(values, dtype=np.float64)
+    out = np.full(grid.shape, np.nan)
+    if ts.size == 0:
+        return out
+    if ts.size == 1:
+        out[grid == ts[0]] = v[0]
+        return out
+    inside = (grid >= ts[0]) & (grid <= ts[-1])
+    g = grid[inside]
+    right = np.searchsorted(ts, g, side="right")  # first sample after g
+    left = np.clip(right - 1, 0, ts.size - 1)
+    if hold:
+        r = v[left]
+    else:
+        finite = np.isfinite(v)
+        if finite.all():
+            r = np.interp(g, ts, v)
+        else:  # never interpolate across a missing sample
+            r = np.interp(g, ts, np.where(finite, v, 0.0))
+            nxt = np.clip(right, 0, ts.size - 1)
+            on_sample = ts[left] == g
+            r = np.where(on_sample, v[left], np.where(finite[left] & finite[nxt], r, np.nan))
+    d = np.diff(ts)
+    step = float(np.median(d[d > 0])) if (d > 0).any() else 0.0
+    if step > 0:
+        nxt = np.clip(right, 0, ts.size - 1)
+        hole = (ts[nxt] - ts[left]) > GAP_FACTOR * step
+        r = np.where(hole & (ts[left] != g), np.nan, r)
+    out[inside] = r
+    return out
+
+
+class _Occurrence:
+    """One channel in one channel group."""
+
+    def __init__(self, name: str, group: int, index: int, unit: str, samples: int) -> None:
+        self.name, self.group, self.index, self.unit, self.samples = (
+            name, group, index, unit, samples
+        )
+
+
+def mdf_source(path: Path, options: InputOptions, mdf: Any) -> Source:
+    """Describe an open ``asammdf.MDF`` as a :class:`~pipeline.ingest.table.Source`."""
+    masters: dict[int, int] = dict(getattr(mdf, "masters_db", {}) or {})
+    occurrences: list[_Occurrence] = []
+    master_names: list[str] = []
+    for gi, group in enumerate(mdf.groups):
+        samples = int(getattr(group.channel_group, "cycles_nr", 0) or 0)
+        for ci, ch in enumerate(group.channels):
+            name = str(ch.name)
+            if masters.get(gi) == ci:
+                if name not in master_names:
+                    master_names.append(name)
+                continue
+            unit = str(getattr(ch, "unit", "") or "")
+            occurrences.append(_Occurrence(name, gi, ci, unit, samples))
+    if not occurrences:
+        raise InputDataError(f"{path}: the MDF file holds no data channels.")
+
+    names: list[str] = []
+    units: list[str | None] = []
+    targets: list[_Occurrence | None] = []  # None: the time raster
+    time_name = master_names[0] if master_names else "time"
+    names.append(time_name)
+    units.append("s")
+    targets.append(None)
+    by_name: dict[str, list[_Occurrence]] = {}
+    for occ in occurrences:
+        by_name.setdefault(occ.name, []).append(occ)
+    notes: list[str] = []
+    chosen: dict[str, _Occurrence] = {}
+    for name, occs in by_name.items():
+        best = max(occs, key=lambda o: o.samples)  # max keeps the first of equals
+        chosen[name] = best
+        names.append(name)
+        units.append(best.unit or None)
+        targets.append(best)
+        if len(occs) > 1:
+            for occ in occs:
+                names.append(f"{name}@{occ.group}")
+                units.append(occ.unit or None)
+                targets.append(occ)
+
+    start = getattr(mdf, "start_time", None)
+    start_note = "MDF header start time"
+    if isinstance(start, datetime):
+        if start.tzinfo is None:
+            start = start.replace(tzinfo=UTC)
+            start_note += " (no time zone flag; taken as UTC)"
+        start = start.astimezone(UTC)
+    else:
+        start = None
+    metadata = {"format": f"ASAM MDF {getattr(mdf, 'version', '?')}"}
+    raster_cfg = getattr(options, "raster_s", None)
+
+    def load(positions: list[int], text_cols: set[int]) -> dict[int, pd.Series]:
+        wanted = [(p, targets[p]) for p in positions if targets[p] is not None]
+        uniq = list(dict.fromkeys((o.name, o.group, o.index) for _, o in wanted if o))
+        for p, occ in wanted:
+            assert occ is not None
+            if names[p] == occ.name and len(by_name[occ.name]) > 1:
+                others = ", ".join(
+                    f"group {o.group} ({o.samples} samples)" for o in by_name[occ.name]
+                )
+                notes.append(
+                    f"Channel '{occ.name}' occurs in {len(by_name[occ.name])} channel groups "
+                    f"({others}); group {occ.group} is used. Write column = "
+                    f"\"{occ.name}@<group>\" to choose another."
+                )
+        try:
+            signals = mdf.select(list(uniq), ignore_value2text_conversions=True)
+        except Exception as exc:  # noqa: BLE001 - asammdf raises many types on corrupt data
+            raise InputDataError(f"{path}: cannot read the MDF channels ({exc}).") from None
+        data: dict[tuple[str, int, int], tuple[np.ndarray, np.ndarray, bool]] = {}
+        steps: list[float] = []
+        for key, sig in zip(uniq, signals, strict=True):
+            ts = np.asarray(sig.timestamps, dtype=np.float64)
+            samples = np.asarray(sig.samples)
+            if samples.ndim != 1 or samples.dtype.kind not in "iufb":
+                notes.append(
+                    f"Channel '{key[0]}' (group {key[1]}) is not a numeric 1-D channel; it is "
+                    "read as missing."
+                )
+                samples = np.full(ts.shape, np.nan)
+            hold = samples.dtype.kind in "iub"
+            if ts.size > 1 and (np.diff(ts) < 0).any():
+                notes.append(
+                    f"Channel '{key[0]}' (group {key[1]}): time stamps go backwards; its "
+                    "samples are taken in time order."
+                )
+                order = np.argsort(ts, kind="stable")
+                ts, samples = ts[order], samples[order]
+            data[key] = (ts, samples, hold)
+            d = np.diff(ts)
+            if (d > 0).any():
+                steps.append(float(np.median(d[d > 0])))
+        spans = [(v[0][0], v[0][-1]) for v in data.values() if v[0].size]
+        if not spans:
+            raise InputDataError(f"{path}: the mapped MDF channels hold no samples.")
+        t0 = min(s[0] for s in spans)
+        t1 = max(s[1] for s in spans)
+        if raster_cfg:
+            raster = float(raster_cfg)
+            notes.append(f"MDF channels resampled to the configured raster of {raster:g} s.")
+        else:
+            raster = min(steps) if steps else 1.0
+            notes.append(
+                f"MDF channels resampled to a raster of {raster:g} s (the fastest mapped "
+                "channel); set [input] raster_s to choose another."
+            )
+        n = int(np.floor((t1 - t0) / raster + 1e-9)) + 1
+        if n > MAX_RASTER_POINTS:
+            raise InputDataError(
+                f"{path}: a raster of {raster:g} s over {t1 - t0:g} s gives {n} rows; set a "
+                "coarser [input] raster_s."
+            )
+        grid = t0 + raster * np.arange(n, dtype=np.float64)
+        out: dict[int, pd.Series] = {}
+        for p in positions:
+            occ = targets[p]
+            if occ is None:
+                out[p] = pd.Series(grid)
+            else:
+                ts, samples, hold = data[(occ.name, occ.group, occ.index)]
+                out[p] = pd.Series(resample(ts, samples, grid, hold))
+        return out
+
+    return Source(
+        path=path,
+        kind="MDF",
+        names=names,
+        file_units=units,
+        header="the channels of the MDF file",
+        load=load,
+        metadata=metadata,
+        start_time=start,
+        start_source=start_note,
+        fallback_time=0,
+        notes=notes,
+        rows_note=" in the MDF file",
+    )
+
+
+def open_mdf(path: Path) -> Any:
+    """Open ``path`` with ``asammdf.MDF`` (InputDataError when it is not readable).
+
+    asammdf leaves a half-built object behind when a file is corrupt, whose ``__del__``
+    prints an "Exception ignored" traceback at exit; that one is silenced here (the user
+    gets the one-sentence message only).
+    """
+    asammdf = import_asammdf(path)
+    previous = sys.unraisablehook
+
+    def quiet(unraisable: Any) -> None:
+        obj = unraisable.object
+        where = f"{getattr(obj, '__module__', '')} {getattr(type(obj), '__module__', '')}"
+        if "asammdf" not in where:
+            previous(unraisable)
+
+    sys.unraisablehook = quiet
+    try:
+        try:
+            return asammdf.MDF(path)
+        except Exception as exc:  # noqa: BLE001 - asammdf raises many types on corrupt files
+            text = str(exc).strip()
+            msg = text.splitlines()[0] if text else type(exc).__name__
+            msg = re.sub(r"'?<mmap\.mmap[^>]*>'?\s*", "", msg) or "corrupt file"
+        gc.collect()  # the half-built object goes now, under the quiet hook
+    finally:
+        sys.unraisablehook = previous
+    raise InputDataError(f"{path}: not a readable MDF file ({msg}).")
+
+
+def read_mdf_run(path: Path, config: Config) -> RunData:
+    """Read an ASAM MDF4 file into canonical units (contract of ``read_run``)."""
+    path = Path(path)
+    mdf = open_mdf(path)
+    try:
+        return build_run(mdf_source(path, config.input, mdf), config)
+    finally:
+        mdf.close()
