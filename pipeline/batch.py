@@ -16,11 +16,12 @@ import json
 import os
 import time
 import traceback
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Iterator, Sequence
 from concurrent.futures import Executor, Future, ProcessPoolExecutor, as_completed
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
+from .atomic import atomic_path
 from .errors import ConfigError, DynoqcError
 
 #: File name patterns taken from a folder given as input.
@@ -138,6 +139,8 @@ def process_night(
             rep.verdicts = dict(res.attrs.get("instrument_verdicts", {}))
     except DynoqcError as exc:
         rep.exit_code, rep.message = exc.exit_code, str(exc)
+        if os.environ.get("DYNOQC_DEBUG"):
+            rep.message += "\n" + traceback.format_exc()
     except KeyboardInterrupt:
         raise
     except Exception as exc:  # an unexpected fault in one night must not stop the batch
@@ -231,9 +234,10 @@ def write_index(reports: Sequence[NightReport], out_dir: Path) -> tuple[Path, Pa
     rows = [asdict(r) for r in sorted(reports, key=lambda r: r.run)]
     json_path = out_dir / f"{INDEX_NAME}.json"
     csv_path = out_dir / f"{INDEX_NAME}.csv"
-    _atomic_text(json_path, lambda fh: json.dump(rows, fh, indent=2))
+    with atomic_path(json_path) as tmp, open(tmp, "w", encoding="utf-8") as fh:
+        json.dump(rows, fh, indent=2)
 
-    def write_csv(fh) -> None:  # noqa: ANN001 - a text file handle
+    with atomic_path(csv_path) as tmp, open(tmp, "w", encoding="utf-8", newline="") as fh:
         w = csv.writer(fh)
         w.writerow(["run", "status", "exit_code", "result_file", "rows", "hours", "flags",
                     "verdicts", "message", "seconds"])
@@ -246,17 +250,4 @@ def write_index(reports: Sequence[NightReport], out_dir: Path) -> tuple[Path, Pa
                 r["message"].splitlines()[0] if r["message"] else "",
                 f"{r['seconds']:.2f}",
             ])
-
-    _atomic_text(csv_path, write_csv)
     return csv_path, json_path
-
-
-def _atomic_text(path: Path, write: Callable) -> None:
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
-    try:
-        with open(tmp, "w", encoding="utf-8", newline="") as fh:
-            write(fh)
-        os.replace(tmp, path)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise

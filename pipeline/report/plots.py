@@ -24,6 +24,7 @@ from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure, SubFigure
 
+from ..atomic import atomic_path
 from ..result import ResultFile
 
 #: The lambda estimates, in drawing order.
@@ -163,7 +164,8 @@ def report_figure(
 def save(body: SubFigure | Figure, out_png: Path) -> Path:
     """Write the figure of ``body`` as PNG without a software tag (byte-reproducible)."""
     out_png = Path(out_png)
-    body.figure.savefig(out_png, dpi=DPI, metadata={"Software": None})
+    with atomic_path(out_png) as tmp:
+        body.figure.savefig(tmp, format="png", dpi=DPI, metadata={"Software": None})
     return out_png
 
 

@@ -17,6 +17,7 @@ from typing import Any
 
 import numpy as np
 
+from ..atomic import atomic_path
 from ..result import ResultFile
 from . import reportdata as rd
 from .plots import provenance
@@ -208,14 +209,16 @@ def markdown(s: dict[str, Any]) -> str:
 def write_markdown(s: dict[str, Any], path: Path) -> Path:
     """Write the Markdown summary."""
     path = Path(path)
-    path.write_text(markdown(s), encoding="utf-8")
+    with atomic_path(path) as tmp:
+        tmp.write_text(markdown(s), encoding="utf-8")
     return path
 
 
 def write_json(s: dict[str, Any], path: Path) -> Path:
     """Write the JSON summary (UTF-8, sorted keys, NaN as null)."""
     path = Path(path)
-    path.write_text(json.dumps(s, indent=2, sort_keys=True, ensure_ascii=False) + "\n",
+    with atomic_path(path) as tmp:
+        tmp.write_text(json.dumps(s, indent=2, sort_keys=True, ensure_ascii=False) + "\n",
                     encoding="utf-8")
     return path
 
@@ -301,6 +304,6 @@ def write_pdf(s: dict[str, Any], path: Path) -> Path:
         p.text(f"skipped {name}: {why}", size=7.5, gap=0.0)
     meta = {"Title": f"dynoqc night summary: {s['run']}", "Creator": None, "Producer": None,
             "CreationDate": None}
-    with PdfPages(path, metadata=meta) as pdf:
+    with atomic_path(path) as tmp, PdfPages(tmp, metadata=meta) as pdf:
         pdf.savefig(fig)
     return path
