@@ -13,7 +13,6 @@ import csv
 import glob
 import hashlib
 import json
-import os
 import time
 import traceback
 from collections.abc import Iterator, Sequence
@@ -101,7 +100,12 @@ def up_to_date(result: Path, source_sha256: str, config_sha256: str, version: st
 
 
 def process_night(
-    run: str, config_path: str, out_dir: str, plots: bool = True, force: bool = False
+    run: str,
+    config_path: str,
+    out_dir: str,
+    plots: bool = True,
+    force: bool = False,
+    debug: bool = False,
 ) -> NightReport:
     """Process one night into ``out_dir``; never raises (the report carries the failure).
 
@@ -139,7 +143,7 @@ def process_night(
             rep.verdicts = dict(res.attrs.get("instrument_verdicts", {}))
     except DynoqcError as exc:
         rep.exit_code, rep.message = exc.exit_code, str(exc)
-        if os.environ.get("DYNOQC_DEBUG"):
+        if debug:
             rep.message += "\n" + traceback.format_exc()
     except KeyboardInterrupt:
         raise
@@ -149,7 +153,7 @@ def process_night(
             f"{path}: internal error ({type(exc).__name__}: {exc}). Run again with --debug "
             "for the traceback and please report it."
         )
-        if os.environ.get("DYNOQC_DEBUG"):
+        if debug:
             rep.message += "\n" + traceback.format_exc()
     finally:
         rep.seconds = time.perf_counter() - t0
@@ -184,6 +188,7 @@ def run_batch(
     jobs: int = 1,
     scheduler: str | None = None,
     executor: Executor | None = None,
+    debug: bool = False,
 ) -> Iterator[NightReport]:
     """Process ``runs``, yielding each night's report as it completes.
 
@@ -206,7 +211,7 @@ def run_batch(
             continue
         seen[stem] = run
         todo.append(run)
-    args = [(str(r), str(config_path), str(out_dir), plots, force) for r in todo]
+    args = [(str(r), str(config_path), str(out_dir), plots, force, debug) for r in todo]
     if executor is None and jobs <= 1 and not scheduler:
         for a in args:
             yield process_night(*a)

@@ -76,13 +76,9 @@ def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: b
             scheduler: str | None, force: bool, no_progress: bool, debug: bool) -> None:
     """Process logged night(s) RUNS (files, folders or glob patterns) into OUT/<run>.h5 plus
     figures and a summary; with several nights also OUT/dynoqc_index.csv and .json."""
-    import os
-
     from .batch import expand_inputs, run_batch, write_index
     from .config import load_config
 
-    if debug:
-        os.environ["DYNOQC_DEBUG"] = "1"
     paths = _guarded(debug, lambda: expand_inputs(runs))
     _guarded(debug, lambda: load_config(config_path))  # a bad config stops before any night
     show = not no_progress and len(paths) > 1 and sys.stderr.isatty()
@@ -100,7 +96,7 @@ def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: b
                 click.echo(line)
 
     batch = run_batch(paths, config_path, out_dir, plots=not no_plots, force=force,
-                      jobs=jobs, scheduler=scheduler)
+                      jobs=jobs, scheduler=scheduler, debug=debug)
     try:
         if show:
             with click.progressbar(length=len(paths), label="nights", file=sys.stderr) as bar:
