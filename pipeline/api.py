@@ -20,13 +20,17 @@ from . import __version__
 from .balance import compute_balance
 from .balance.driftcor import apply_drift_correction
 from .balance.tables import emissions_table
-from .checks import run_checks
+from .checks import instrument_verdicts, run_checks
 from .checks.alignment import align_analyzers
+from .checks.intervals import make_clock
 from .config import Config, load_config
 from .data import FLAG_COLUMNS, ProcessResult, RunData, make_flags
 from .ingest import read_run
 from .intervals import gap_flags
 from .quantities import DERIVED, GASES, INPUTS
+
+#: Flag checks that make an instrument's verdict (others, e.g. data_gap, are only listed).
+VERDICT_CHECKS = ("drift", "lambda_disagreement", "out_of_range", "condensation_risk")
 
 
 def run_stem(path: Path) -> str:
@@ -187,20 +191,28 @@ def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessRes
                 "long_name": f"{series_attrs[base]['long_name']}, drift-corrected "
                 "(40 CFR 1065.672)",
             }
+    flags = _sorted_flags([bal.flags, gaps, checked.flags])
+    # Verdicts over every instrument check (the checks stage's and the balance's, e.g. the
+    # sample line's condensation risk); data gaps are listed as flags, not verdicts.
+    verdicts = instrument_verdicts(
+        flags[flags["check"].isin(VERDICT_CHECKS)],
+        [name for name, _ in checked.verdicts],
+        make_clock(run.meta.start_time),
+    )
     attrs = _provenance(cfg, run, notes)
     attrs.update(
         balance=dict(bal.attrs),
         checks_settings=dict(checked.attrs),
-        instrument_verdicts=dict(checked.verdicts),
+        instrument_verdicts=dict(verdicts),
     )
     return ProcessResult(
         series=series,
         series_attrs=series_attrs,
-        flags=_sorted_flags([bal.flags, gaps, checked.flags]),
+        flags=flags,
         tables=tables,
         group_attrs={"alignment": alignment},
         attrs=attrs,
-        summary=_verdict_lines(checked.verdicts),
+        summary=_verdict_lines(verdicts),
     )
 
 

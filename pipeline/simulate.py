@@ -340,6 +340,7 @@ DEFAULT_COLUMNS: dict[str, str] = {
     "ambient_pressure": "baro",
     "ambient_humidity": "cell_air_rh",
     "analyzer_mode": "bench_mode",
+    "sample_line_temperature": "line_temp",
 }
 
 #: Logged unit, factor from canonical unit, decimals written (logger resolution).
@@ -359,6 +360,7 @@ _LOG_UNITS: dict[str, tuple[str, float, int]] = {
     "ambient_pressure": ("kPa", 1.0, 3),
     "ambient_humidity": ("%", 1.0, 2),
     "analyzer_mode": ("-", 1.0, 0),
+    "sample_line_temperature": ("degC", 1.0, 1),
 }
 
 #: Noise standard deviation per channel as (absolute in canonical unit, relative to reading);
@@ -428,6 +430,9 @@ class Scenario:
     dropouts: Sequence[tuple[float, float]] = ()
     faults: Sequence[Fault] = ()
     columns: Mapping[str, str] = field(default_factory=lambda: dict(DEFAULT_COLUMNS))
+    sample_line_setpoint_degC: float = 190.0
+    line_heater_trips: Sequence[tuple[float, float]] = ()
+    line_tau_s: float = 240.0
 
 
 def _schedule(points: Sequence[OperatingPoint], duration_s: float) -> tuple[np.ndarray, np.ndarray]:
@@ -441,6 +446,30 @@ def _schedule(points: Sequence[OperatingPoint], duration_s: float) -> tuple[np.n
         knots += [knots[-1] + points[i].ramp_s, knots[-1] + points[i].ramp_s + points[i].hold_s]
         idx += [i, i]
     return np.asarray(knots), np.asarray(idx)
+
+
+def sample_line_temperature(
+    time_s: np.ndarray,
+    cell_air_degC: np.ndarray,
+    setpoint_degC: float,
+    trips: Sequence[tuple[float, float]],
+    tau_s: float,
+) -> np.ndarray:
+    """Heated sample-line temperature, degC: held at the set point (with a 0.4 K, 10 min
+    controller wobble); during a heater trip (start h, duration s) it cools towards the cell
+    air and recovers after the reset, first order with ``tau_s`` (vectorised)."""
+    line = setpoint_degC + 0.4 * np.sin(2 * np.pi * time_s / 600.0)
+    for start_h, dur_s in trips:
+        t0, t1 = start_h * 3600.0, start_h * 3600.0 + dur_s
+        drop = setpoint_degC - cell_air_degC
+        cool = setpoint_degC - drop * (1 - np.exp(-np.clip(time_s - t0, 0, None) / tau_s))
+        at_reset = setpoint_degC - drop * (1 - np.exp(-(t1 - t0) / tau_s))
+        warm = setpoint_degC - (setpoint_degC - at_reset) * np.exp(
+            -np.clip(time_s - t1, 0, None) / tau_s
+        )
+        line = np.where((time_s >= t0) & (time_s < t1), cool, line)
+        line = np.where(time_s >= t1, np.minimum(line, warm), line)
+    return line
 
 
 def _first_order(x: np.ndarray, dt: float, tau: float) -> np.ndarray:
@@ -603,6 +632,9 @@ def make_night(scenario: Scenario) -> tuple[pd.DataFrame, pd.DataFrame]:
             sd = a_abs + a_rel * np.abs(logged[name])
             logged[name] = logged[name] + sd * rng.standard_normal(n)
     logged["analyzer_mode"] = mode.astype(float)
+    logged["sample_line_temperature"] = sample_line_temperature(
+        time, t_amb, sc.sample_line_setpoint_degC, sc.line_heater_trips, sc.line_tau_s
+    )
     logged["time"] = time
 
     # --- to logger columns, units and resolution ---------------------------------------------

@@ -5,7 +5,8 @@ Usage: ``python sample_runs/make_sample_runs.py`` (from the repository root).
 The scenario is our own invention: test cell "Cell B3", a 2.0 L turbocharged prototype
 diesel "D20-T" on #2 diesel, run unattended through the night of 2026-03-14/15 on a repeated
 steady-state map. One instrument fault is injected for the checks to find (see README.md in
-this folder): the CO2 analyzer span drifts -4 % linearly from 03:10 UTC over 2 h.
+this folder): the CO2 analyzer span drifts -4 % linearly from 03:10 UTC over 2 h; and the
+heated sample line's heater trips for 20 min from 05:30 UTC.
 """
 
 from __future__ import annotations
@@ -43,6 +44,9 @@ MAP = [
     _pt(3500, 120, 1.90, 11.70, 1800, 30, co=0.0018, thc=0.0006, no=0.0035),
 ]
 
+#: The sample line's heater trips at 05:30 UTC (8.5 h) and is reset 20 min later.
+LINE_HEATER_TRIP = (8.5, 20 * 60.0)
+
 #: The injected fault (the truth the checks should find).
 CO2_SPAN_DRIFT = Fault("co2", "span_drift", onset_h=6.0 + 10.0 / 60.0, size=-4.0, duration_h=2.0)
 
@@ -68,6 +72,7 @@ def cell_b3_scenario() -> Scenario:
         cal_windows=[CalWindow(start_h=5.0)],  # 02:00-02:15 UTC
         dropouts=[(2.7, 62.0)],  # 23:42:00 UTC, 62 s of empty rows
         faults=[CO2_SPAN_DRIFT],
+        line_heater_trips=[LINE_HEATER_TRIP],
     )
 
 

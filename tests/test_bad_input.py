@@ -36,7 +36,7 @@ DYNOQC = Path(sys.executable).with_name("dynoqc")
 N_HEADER = 8  # 6 metadata lines, names, units (write_csv with the sample's metadata)
 COLUMNS = ["time", "engine_speed", "engine_torque", "fuel_flow", "air_flow", "co2_dry",
            "co_dry", "o2_dry", "nox_dry", "thc_hot", "lambda_wb", "cell_air_temp", "baro",
-           "cell_air_rh", "bench_mode"]
+           "cell_air_rh", "bench_mode", "line_temp"]
 
 
 @pytest.fixture(scope="module")

@@ -274,7 +274,11 @@ def _flag_phrase(
             size = f"{value:+.1f} % in lambda"
         who = ", shared suspect" if shared else ", suspect"
         return f"{word} {size} from {clock(start)}, flagged for {hours:.1f} h{who}"
-    return f"{row['check']} from {clock(start)}"
+    span = f"{hours:.1f} h" if hours >= 1 else f"{max(1, round(hours * 60))} min"
+    if row["check"] == "condensation_risk":
+        where = f"{-value:.0f} K below" if value < 0 else f"only {value:.0f} K above"
+        return f"condensation risk from {clock(start)} for {span}: line {where} the dew point"
+    return f"{str(row['check']).replace('_', ' ')} from {clock(start)} for {span}"
 
 
 def instrument_verdicts(

@@ -33,9 +33,20 @@ from .plots import (
 #: File name part of this figure.
 NAME = "water"
 
-#: Minimum condensation margin [K] drawn as a guide: common practice keeps heated lines
-#: well above the dew point; 10 K is a usual rule of thumb (from memory).
-GUIDE_MARGIN_K = 10.0
+#: Condensation margin [K] drawn when the result does not record the configured one
+#: (``[sampling] condensation_margin_K``, which the condensation_risk check used).
+GUIDE_MARGIN_K = 5.0
+
+
+def configured_margin(res: ResultFile) -> float:
+    """The condensation margin the run used, from the resolved config in the result file."""
+    import tomllib
+
+    try:
+        cfg = tomllib.loads(str(res.attrs.get("config_toml", "")))
+        return float(cfg.get("sampling", {}).get("condensation_margin_K", GUIDE_MARGIN_K))
+    except (tomllib.TOMLDecodeError, TypeError, ValueError):
+        return GUIDE_MARGIN_K
 
 
 def water_data(res: ResultFile) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -66,6 +77,7 @@ def _trace(ax, x, v, n_bins, color, ls):  # noqa: ANN001, ANN202 - local drawing
 def plot_water(res: ResultFile, out_png: Path) -> Path:
     """Write the water figure (1600 x 960 px)."""
     t, dew, margin = water_data(res)
+    guide = configured_margin(res)
     line = dew + margin
     conv, _, _ = night_x(res)
     x = conv(t)
@@ -77,11 +89,11 @@ def plot_water(res: ResultFile, out_png: Path) -> Path:
         ax.set_ylabel("temperature (\u00b0C)")
         _trace(axm, x, margin, n_bins, "#000000", "-")
         axm.axhline(0.0, color="#D55E00", linewidth=1.0)
-        axm.axhline(GUIDE_MARGIN_K, color="#555555", linewidth=0.8, linestyle=(0, (4, 3)))
+        axm.axhline(guide, color="#555555", linewidth=0.8, linestyle=(0, (4, 3)))
         axm.set_ylabel("margin (K)")
         axm.fill_between([x[0], x[-1]], [0, 0], [-1e3, -1e3], color="#fbe3d6", zorder=0)
         lo = min(-2.0, float(np.nanpercentile(margin, 0.5)) - 2.0)
-        hi = max(GUIDE_MARGIN_K + 5.0, float(np.nanpercentile(margin, 99.5)) + 2.0)
+        hi = max(guide + 5.0, float(np.nanpercentile(margin, 99.5)) + 2.0)
         axm.set_ylim(lo, hi)
         flags = res.flags
         risk = flags[flags["check"].astype(str) == "condensation_risk"] if len(flags) else flags
@@ -97,7 +109,7 @@ def plot_water(res: ResultFile, out_png: Path) -> Path:
                    label="exhaust dew point"),
             Line2D([], [], color="#000000", linewidth=1.4, label="margin = line \u2212 dew point"),
             Line2D([], [], color="#555555", linewidth=0.8, linestyle=(0, (4, 3)),
-                   label=f"{GUIDE_MARGIN_K:g} K guide margin"),
+                   label=f"{guide:g} K condensation margin (config)"),
             Patch(facecolor="#fbe3d6", label="condensation (margin < 0)"),
         ]
         if len(risk):
