@@ -8,6 +8,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
@@ -146,19 +147,39 @@ def _provenance(cfg: Config, run: RunData, notes: list[str]) -> dict[str, Any]:
     return attrs
 
 
-def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessResult:
-    """Process one logged night: ingest -> align -> balance -> checks. No files are written."""
+#: Stage names reported to a progress callback, in order (process_to_files adds the last two).
+STAGES = ("reading", "aligning", "balance", "checks", "results", "writing", "report")
+
+
+def _noop(stage: str) -> None:
+    """Default progress callback."""
+
+
+def process_run(
+    run_path: str | Path,
+    config: str | Path | Config,
+    *,
+    progress: Callable[[str], None] = _noop,
+) -> ProcessResult:
+    """Process one logged night: ingest -> align -> balance -> checks. No files are written.
+
+    ``progress`` is called with each stage name of :data:`STAGES` as it starts.
+    """
     run_path = Path(run_path)
     cfg = config if isinstance(config, Config) else load_config(config)
 
+    progress("reading")
     run = read_run(run_path, cfg)  # ingest
+    progress("aligning")
     gas_columns = [g for g in GASES if g in run.frame]
     settings = dict(cfg.checks)
     frame, alignment = align_analyzers(
         run.frame, gas_columns, settings, cfg.sampling.analyzer_delay_s
     )
     delay = float(alignment.get("analyzer_delay_s", 0.0))
+    progress("balance")
     bal = compute_balance(frame, cfg, analyzer_delay_s=delay)  # balance
+    progress("checks")
     checked = run_checks(  # checks
         frame,
         bal.derived,
@@ -174,6 +195,7 @@ def process_run(run_path: str | Path, config: str | Path | Config) -> ProcessRes
     gaps = make_flags(
         gap_flags(logged["time"].to_numpy(), {c: logged[c].to_numpy() for c in essential})
     )
+    progress("results")
     series = pd.concat(
         [frame.reset_index(drop=True), bal.derived, pd.DataFrame(checked.series)], axis=1
     )
@@ -227,17 +249,25 @@ class NightOutcome:
 
 
 def process_to_files(
-    run_path: str | Path, config: str | Path | Config, out_dir: str | Path, *, plots: bool = True
+    run_path: str | Path,
+    config: str | Path | Config,
+    out_dir: str | Path,
+    *,
+    plots: bool = True,
+    progress: Callable[[str], None] = _noop,
 ) -> NightOutcome:
-    """Process one night and write ``OUT/<run stem>.h5`` (atomically) and its figures."""
+    """Process one night and write ``OUT/<run stem>.h5`` (atomically), its figures and its
+    summary; ``progress`` is called with each stage name of :data:`STAGES`."""
     from .report import render_report
     from .report.hdf5 import write_result
 
     run_path = Path(run_path)
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
-    result = process_run(run_path, config)
+    result = process_run(run_path, config, progress=progress)
+    progress("writing")
     h5 = write_result(out_dir / f"{run_stem(run_path)}.h5", result)
+    progress("report")
     # Figures and summary are rebuilt from the result file alone.
     outputs = render_report(h5, out_dir, plots=plots)
     return NightOutcome(run=run_path, result_file=h5, figures=outputs, result=result)

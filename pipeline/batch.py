@@ -15,7 +15,7 @@ import hashlib
 import json
 import time
 import traceback
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import Executor, Future, ProcessPoolExecutor, as_completed
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
@@ -106,11 +106,12 @@ def process_night(
     plots: bool = True,
     force: bool = False,
     debug: bool = False,
+    progress: Callable[[str], None] | None = None,
 ) -> NightReport:
     """Process one night into ``out_dir``; never raises (the report carries the failure).
 
     A top-level function so that process pools (fork, spawn or forkserver) and Dask workers
-    can run it.
+    can run it. ``progress`` (in-process use only) receives the stage names.
     """
     from . import __version__
     from .api import process_to_files, run_stem
@@ -130,7 +131,9 @@ def process_night(
             rep.message = "unchanged input, config and tool version; result kept (--force to redo)"
             rep.lines = [f"{path.name} -> {result}  (skipped: {rep.message})"]
             return rep
-        outcome = process_to_files(path, cfg, out_dir, plots=plots)
+        outcome = process_to_files(
+            path, cfg, out_dir, plots=plots, **({"progress": progress} if progress else {})
+        )
         res = outcome.result
         rep.status, rep.result_file = "processed", str(outcome.result_file)
         rep.outputs = [str(p) for p in outcome.figures]

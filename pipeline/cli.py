@@ -98,7 +98,10 @@ def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: b
     batch = run_batch(paths, config_path, out_dir, plots=not no_plots, force=force,
                       jobs=jobs, scheduler=scheduler, debug=debug)
     try:
-        if show:
+        if len(paths) == 1 and not no_progress and sys.stderr.isatty():
+            consume(_single_night_with_progress(paths[0], config_path, out_dir, not no_plots,
+                                                force, debug))
+        elif show:
             with click.progressbar(length=len(paths), label="nights", file=sys.stderr) as bar:
                 def ticking():  # noqa: ANN202
                     for rep in batch:
@@ -118,6 +121,23 @@ def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: b
         failed = sum(r.status == "failed" for r in reports)
         click.echo(f"{done} processed, {skipped} skipped, {failed} failed; index: {csv_path}")
     sys.exit(worst)
+
+
+def _single_night_with_progress(run: Path, config_path: Path, out_dir: Path, plots: bool,
+                                force: bool, debug: bool):  # noqa: ANN202 - a generator
+    """One long night in this process, with a stage progress bar on stderr."""
+    from .api import STAGES
+    from .batch import process_night
+
+    with click.progressbar(length=len(STAGES), label=f"{run.name}: starting",
+                           file=sys.stderr) as bar:
+        def step(stage: str) -> None:
+            bar.label = f"{run.name}: {stage}"
+            bar.update(1)
+
+        rep = process_night(str(run), str(config_path), str(out_dir), plots, force, debug,
+                            progress=step)
+    yield rep  # after the bar has finished its line
 
 
 @main.command()
