@@ -145,12 +145,11 @@ def fuels() -> None:
     """List the fuel presets and their derived properties."""
     from .fuels import load_presets
 
-    click.echo(f"{'preset':<12} {'H/C':>6} {'O/C':>6} {'w_C':>7} {'AFR_st':>7}  description")
+    click.echo(f"{'preset':<12} {'formula':<16} {'w_C':>7} {'AFR_st':>7}  description")
     for name, f in load_presets().items():
-        click.echo(
-            f"{name:<12} {f.h_c:6.3f} {f.o_c:6.3f} {f.w_c:7.4f} {f.afr_stoich:7.3f}  "
-            f"{f.description}"
-        )
+        formula = (f"CH{f.h_c:.3g}" + (f"O{f.o_c:.3g}" if f.o_c else "")) if f.has_carbon \
+            else f"H{f.h_c:.3g}" + (f"N{f.n_c:.3g}" if f.n_c else "")
+        click.echo(f"{name:<12} {formula:<16} {f.w_c:7.4f} {f.afr_stoich:7.3f}  {f.description}")
     click.echo("AFR_st: kg dry air per kg fuel, computed from the composition (CFR dry air).")
 
 
