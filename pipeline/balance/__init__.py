@@ -419,6 +419,7 @@ def _condensation_flags(
     rows = []
     for start, end, i0, i1 in mask_to_intervals(t, risk, min_duration_s=10.0, merge_gap_s=60.0):
         worst = float(np.nanmin((line - dew)[i0 : i1 + 1]))
+        where = f"{-worst:.1f} K below" if worst < 0 else f"only {worst:.1f} K above"
         rows.append(
             {
                 "start_s": start,
@@ -427,8 +428,8 @@ def _condensation_flags(
                 "suspect": "sample_line_temperature",
                 "severity": "warning",
                 "value": worst,
-                "message": f"Sample line only {worst:.1f} K above the exhaust dew point "
-                f"(margin {margin_k:g} K): water may condense and wash out NO2 and HC.",
+                "message": f"Sample line {where} the exhaust dew point at worst (margin "
+                f"{margin_k:g} K): water may condense and wash out NO2 and HC.",
             }
         )
     return rows
