@@ -122,7 +122,10 @@ def read_result(path: str | Path) -> ResultFile:
             raise ValueError(f"{path}: not a dynoqc result file (no /timeseries/time)")
         ts = f["timeseries"]
         names = ["time"] + [n for n in ts if n != "time" and isinstance(ts[n], h5py.Dataset)]
-        timeseries = pd.DataFrame({n: ts[n][()].astype(np.float64) for n in names})
+        from .report.hdf5 import read_series  # threaded chunk decoding, same values
+
+        arrays = read_series(ts, names)
+        timeseries = pd.DataFrame({n: np.asarray(arrays[n], dtype=np.float64) for n in names})
         series_attrs = {n: _attrs(ts[n]) for n in names}
         units = {n: str(a.get("units", "")) for n, a in series_attrs.items()}
         long_names = {n: str(a.get("long_name", "")) for n, a in series_attrs.items()}

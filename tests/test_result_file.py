@@ -114,7 +114,8 @@ def test_contract_layout(tmp_path: Path) -> None:
             assert ds.ndim == 1 and ds.shape == (len(res.series),)
             assert ds.dtype == np.float64
             assert ds.attrs["units"] and ds.attrs["long_name"], name
-            assert ds.compression == "gzip" and ds.compression_opts == 4 and ds.shuffle
+            assert ds.compression == "gzip" and ds.shuffle
+            assert ds.compression_opts == hdf5_mod.recorded_gzip_level()
             assert ds.chunks == (len(res.series),)  # shorter than 64 k samples: one chunk
             assert np.isnan(ds.fillvalue)
             if name != "time":
@@ -275,3 +276,119 @@ def test_start_time_as_aware_datetime_is_converted_to_utc(tmp_path: Path) -> Non
     with h5py.File(write_result(tmp_path / "r.h5", res), "r") as f:
         assert f["timeseries/time"].attrs["units"] == f"seconds since {START}"
         assert f.attrs["start_time_utc"] == START
+
+
+def _long_result(n: int) -> ProcessResult:
+    """A result with several chunks per series, a partial last chunk, NaN/inf and non-float."""
+    rng = np.random.default_rng(3)
+    res = _result()
+    co2 = rng.normal(0.12, 0.01, n)
+    co2[[5, n // 2, n - 1]] = [np.nan, np.inf, -np.inf]
+    res.series = pd.DataFrame(
+        {
+            "time": np.arange(n) * 0.1,
+            "lambda_flow": 1.0 + rng.normal(0, 0.01, n),
+            "co2": co2,
+            "steady": (np.arange(n) % 7 == 0).astype(np.int8),  # not float64: converted
+        }
+    )
+    return res
+
+
+@pytest.mark.parametrize("encoder", ["default", "stdlib"])
+def test_chunks_encoded_in_threads_read_back_everywhere(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, encoder: str
+) -> None:
+    """Chunks are shuffled + deflated by write_result itself (write_direct_chunk): the file
+    must hold the standard filter pipeline and decode, through HDF5's own filters, to the same
+    values as a dataset written by HDF5 with those filters."""
+    import zlib
+
+    if encoder == "stdlib":  # the path taken when the optional isal package is missing
+        monkeypatch.setattr(
+            hdf5_mod, "_deflate_encoder", lambda: lambda b: zlib.compress(b, hdf5_mod.GZIP_LEVEL)
+        )
+    n = 150_001  # 3 chunks of 64 Ki samples, the last one partial
+    res = _long_result(n)
+    out = write_result(tmp_path / "r.h5", res)
+    ref = tmp_path / "ref.h5"
+    with h5py.File(out, "r") as f, h5py.File(ref, "w") as g:
+        for name in res.series.columns:
+            ds = f["timeseries"][name]
+            expected = res.series[name].to_numpy(dtype=np.float64)
+            expected = np.where(np.isinf(expected), np.nan, expected)
+            assert ds.chunks == (65536,) and ds.shuffle and ds.compression == "gzip"
+            assert ds.compression_opts == hdf5_mod.recorded_gzip_level()
+            assert ds.shape == (n,) and ds.dtype == np.float64
+            assert np.array_equal(ds[()], expected, equal_nan=True), name
+            assert np.array_equal(ds[65530:65540], expected[65530:65540], equal_nan=True)
+            # every stored chunk is a plain zlib stream of the byte-shuffled float64 values
+            for k, off in enumerate(range(0, n, 65536)):
+                mask, raw = ds.id.read_direct_chunk((off,))
+                assert mask == 0
+                plain = np.frombuffer(zlib.decompress(raw), np.uint8).reshape(8, -1).T
+                values = plain.copy().view("<f8").ravel()
+                m = min(65536, n - off)
+                assert np.array_equal(values[:m], expected[off : off + m], equal_nan=True), k
+                assert np.isnan(values[m:]).all()  # padded with the fill value
+            g.create_dataset(name, data=expected, chunks=(65536,), compression="gzip",
+                             compression_opts=4, shuffle=True, fillvalue=np.nan)
+        ts = f["timeseries"]
+        assert ts["co2"].dims[0][0] == ts["time"]
+    with h5py.File(ref, "r") as g, h5py.File(out, "r") as f:
+        for name in res.series.columns:
+            assert np.array_equal(g[name][()], f["timeseries"][name][()], equal_nan=True)
+
+
+def test_encoding_error_removes_temp_file(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """An exception in an encoding thread reaches the caller; nothing is left behind."""
+
+    def broken() -> object:
+        def deflate(buf: object) -> bytes:
+            raise RuntimeError("encoder failed")
+
+        return deflate
+
+    monkeypatch.setattr(hdf5_mod, "_deflate_encoder", broken)
+    with pytest.raises(RuntimeError, match="encoder failed"):
+        write_result(tmp_path / "r.h5", _long_result(70_000))
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_non_numeric_series_raises(tmp_path: Path) -> None:
+    res = _result()
+    res.series["co2"] = ["x"] * len(res.series)
+    with pytest.raises(ValueError, match="'co2' is not numeric"):
+        write_result(tmp_path / "r.h5", res)
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_read_series_matches_hdf5_decoding(tmp_path: Path) -> None:
+    """read_series (threaded chunk decoding) gives exactly what h5py/HDF5 decode, for the
+    writer's own layout and for other layouts (which it leaves to HDF5)."""
+    n = 150_001
+    res = _long_result(n)
+    out = write_result(tmp_path / "r.h5", res)
+    other = tmp_path / "other.h5"
+    x = np.random.default_rng(5).normal(size=n)
+    with h5py.File(other, "w") as g:
+        g.create_dataset("plain", data=x)
+        g.create_dataset("gzip_only", data=x, chunks=(10_000,), compression="gzip")
+        g.create_dataset("hdf5_shuffle_gzip", data=x, chunks=(65536,), compression="gzip",
+                         shuffle=True)
+        part = g.create_dataset("unwritten_chunks", shape=(n,), dtype="<f8", chunks=(65536,),
+                                compression="gzip", shuffle=True, fillvalue=np.nan)
+        part[:10] = x[:10]
+        g.create_dataset("float32", data=x.astype(np.float32), chunks=(65536,),
+                         compression="gzip", shuffle=True)
+    for path in (out, other):
+        with h5py.File(path, "r") as f:
+            grp = f["timeseries"] if "timeseries" in f else f
+            names = list(grp)
+            got = hdf5_mod.read_series(grp, names)
+            for name in names:
+                want = grp[name][()]
+                assert got[name].dtype == want.dtype, name
+                assert np.array_equal(got[name], want, equal_nan=True), name

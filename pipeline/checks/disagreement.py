@@ -15,7 +15,15 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .intervals import hysteresis, mask_runs, median_step, merge_runs
+from .intervals import (
+    hysteresis,
+    mask_runs,
+    median_may_reach,
+    median_step,
+    merge_runs,
+    rolling_median_at,
+    window_counts,
+)
 
 
 def smooth_residual(
@@ -31,11 +39,25 @@ def smooth_residual(
 def disagreement_intervals(
     time: np.ndarray, r: np.ndarray, judged: np.ndarray, tolerance: float, settings: dict
 ) -> np.ndarray:
-    """Inclusive index pairs of the disagreement stretches of one residual."""
-    sm = smooth_residual(time, r, judged, settings["disagreement_smooth_s"])
-    a = np.abs(sm)
-    latched = hysteresis(a, tolerance, settings["disagreement_release_fraction"] * tolerance)
-    bad = latched & judged & np.isfinite(a)
+    """Inclusive index pairs of the disagreement stretches of one residual.
+
+    The same stretches as hysteresis on ``|smooth_residual(...)|``, but the rolling median is
+    only computed where it may reach the smaller of the release level and the tolerance
+    (:func:`~.intervals.median_may_reach`). Elsewhere it is certainly below both, which is all
+    the hysteresis needs to know: a release event, stood in for by -inf.
+    """
+    release = settings["disagreement_release_fraction"] * tolerance
+    level = min(release, tolerance)
+    x = np.where(judged, r, np.nan)
+    n = max(1, int(round(settings["disagreement_smooth_s"] / median_step(time))))
+    min_periods = max(1, n // 2)
+    # samples with a median (judged, enough valid samples in the window: rolling semantics)
+    known = judged & (window_counts(np.isfinite(x), n) >= min_periods)
+    exact = known & median_may_reach(x, n, min_periods, -level, level)
+    a = np.where(known, -np.inf, np.nan)
+    a[exact] = np.abs(rolling_median_at(x, n, min_periods, exact)[exact])
+    latched = hysteresis(a, tolerance, release)
+    bad = latched & judged & (np.isfinite(a) | (known & ~exact))
     runs = merge_runs(mask_runs(bad), time, settings["disagreement_merge_gap_s"])
     if not len(runs):
         return runs

@@ -65,6 +65,65 @@ def make_clock(start: datetime | None) -> Callable[[float], str]:
     return clock
 
 
+def window_counts(mask: np.ndarray, n: int) -> np.ndarray:
+    """Number of True samples in the centred window of ``n`` samples around each sample.
+
+    The windows are those of ``pd.Series.rolling(n, center=True)``: samples
+    ``i + (n - 1) // 2 + 1 - n`` to ``i + (n - 1) // 2``, cut at both ends of the array.
+    """
+    m = np.asarray(mask, dtype=bool)
+    size = m.size
+    csum = np.concatenate(([0], np.cumsum(m, dtype=np.int64)))
+    end = np.arange(size, dtype=np.int64) + (n - 1) // 2 + 1
+    start = np.clip(end - n, 0, size)
+    return csum[np.minimum(end, size)] - csum[start]
+
+
+def median_may_reach(
+    x: np.ndarray, n: int, min_periods: int, low: float, high: float
+) -> np.ndarray:
+    """Samples whose centred rolling median (window ``n``) may be ``<= low`` or ``>= high``.
+
+    A cheap, exact pre-test for :func:`rolling_median_at`: the median of the k valid values in
+    a window is ``>= high`` only if at least k/2 of them are ``>= high`` (for an even k the
+    median is the mean of the two middle values, and rounding is monotonic), and likewise for
+    ``<= low``. Samples with fewer than ``min_periods`` valid values (median NaN) are False.
+    Valid means finite: pandas' rolling functions treat infinities as missing.
+    """
+    x = np.asarray(x, dtype=float)
+    valid = np.isfinite(x)
+    k = window_counts(valid, n)
+    with np.errstate(invalid="ignore"):
+        n_low = window_counts(valid & (x <= low), n)
+        n_high = window_counts(valid & (x >= high), n)
+    return (k >= max(1, min_periods)) & ((2 * n_low >= k) | (2 * n_high >= k))
+
+
+def rolling_median_at(
+    x: np.ndarray, n: int, min_periods: int, where: np.ndarray
+) -> np.ndarray:
+    """``pd.Series(x).rolling(n, min_periods=min_periods, center=True).median()`` at the samples
+    in ``where``, NaN elsewhere.
+
+    The same pandas routine runs on stretches of ``x`` that hold every window needed (the
+    samples asked for plus ``n`` on each side), so the values are bit-identical to the
+    rolling median of the whole array, at a fraction of the cost when few samples are asked.
+    """
+    x = np.asarray(x, dtype=float)
+    out = np.full(x.size, np.nan)
+    runs = mask_runs(where)
+    if not len(runs):
+        return out
+    # one pandas call per group of runs whose context windows would overlap
+    new = np.concatenate(([True], runs[1:, 0] - runs[:-1, 1] > 2 * n))
+    last = np.concatenate((new[1:], [True]))
+    for i0, i1 in zip(runs[new, 0], runs[last, 1], strict=True):
+        lo, hi = max(0, i0 - n), min(x.size, i1 + n + 1)
+        med = pd.Series(x[lo:hi]).rolling(n, min_periods=min_periods, center=True).median()
+        out[i0 : i1 + 1] = med.to_numpy()[i0 - lo : i1 - lo + 1]
+    return np.where(where, out, np.nan)
+
+
 def median_step(time: np.ndarray) -> float:
     """Median positive sample step of a time column [s] (1.0 when it cannot be told)."""
     dt = np.diff(np.asarray(time, dtype=float))

@@ -8,7 +8,7 @@ import numpy as np
 import pandas as pd
 
 from ..quantities import GASES
-from .intervals import mask_runs, median_step, merge_runs
+from .intervals import mask_runs, median_may_reach, median_step, merge_runs, rolling_median_at
 
 
 def _percent(x: float) -> str:
@@ -40,8 +40,7 @@ def out_of_range_flags(
             continue
         raw = frame[col].to_numpy(dtype=float)
         # a rolling median, so noise around a zero reading is not taken for a negative reading
-        x = pd.Series(raw).rolling(n_smooth, center=True, min_periods=1).median().to_numpy()
-        checks = []
+        limits: list[tuple[str, float, float]] = []  # (what, median <= low, median >= high)
         if is_gas:
             tol = (
                 settings["out_of_range_negative_fraction"] * full
@@ -55,13 +54,31 @@ def out_of_range_flags(
             if d.size:
                 noise = 1.4826 * float(np.median(np.abs(d - np.median(d)))) / np.sqrt(2.0)
                 tol = max(tol, 6.0 * 1.2533 * noise / np.sqrt(n_smooth))
-            with np.errstate(invalid="ignore"):
-                checks.append(("negative", x < -tol))
+            limits.append(("negative", -tol, np.inf))
         if full:
-            with np.errstate(invalid="ignore"):
-                checks.append(("above range", x > settings["out_of_range_high_fraction"] * full))
-        for what, mask in checks:
-            runs = merge_runs(mask_runs(mask), time, settings["out_of_range_merge_gap_s"])
+            limits.append(("above range", -np.inf, settings["out_of_range_high_fraction"] * full))
+        # The centred rolling median (min_periods 1) is computed only where it may cross a limit
+        # (exact pre-test, see median_may_reach) and over the stretches flagged; the values are
+        # those of the median of the whole channel.
+        maybe = np.zeros(len(raw), dtype=bool)
+        for _, low, high in limits:
+            maybe |= median_may_reach(raw, n_smooth, 1, low, high)
+        x = rolling_median_at(raw, n_smooth, 1, maybe)
+        checks = []
+        with np.errstate(invalid="ignore"):
+            for what, low, high in limits:
+                checks.append((what, x < low if what == "negative" else x > high))
+        spans = [
+            (what, mask, merge_runs(mask_runs(mask), time, settings["out_of_range_merge_gap_s"]))
+            for what, mask in checks
+        ]
+        flagged = np.zeros(len(raw), dtype=bool)
+        for _, _, runs in spans:
+            for i0, i1 in runs:
+                flagged[i0 : i1 + 1] = True
+        if flagged.any():  # the worst value of a stretch is read from the median over it
+            x = rolling_median_at(raw, n_smooth, 1, maybe | flagged)
+        for what, mask, runs in spans:
             for i0, i1 in runs:
                 seg = x[i0 : i1 + 1]
                 worst = float(np.nanmin(seg) if what == "negative" else np.nanmax(seg))
