@@ -13,6 +13,9 @@ import csv
 import glob
 import hashlib
 import json
+import multiprocessing
+import multiprocessing.context
+import os
 import time
 import traceback
 from collections.abc import Callable, Iterator, Sequence
@@ -178,7 +181,44 @@ def make_executor(jobs: int, scheduler: str | None) -> Executor:
         except OSError as exc:
             raise ConfigError(f"--scheduler {scheduler}: cannot connect ({exc}).") from None
         return client.get_executor(pure=False)
-    return ProcessPoolExecutor(max_workers=jobs, max_tasks_per_child=20)
+    threads = max(1, _cpu_count() // jobs)
+    return ProcessPoolExecutor(
+        max_workers=jobs, mp_context=_worker_context(), max_tasks_per_child=20,
+        initializer=_limit_threads, initargs=(threads,),
+    )
+
+
+def _cpu_count() -> int:
+    if hasattr(os, "sched_getaffinity"):
+        return len(os.sched_getaffinity(0))
+    return os.cpu_count() or 1
+
+
+def _limit_threads(threads: int) -> None:
+    """Worker set-up: share the CPUs between the workers instead of each one starting a
+    thread per CPU (pyarrow's reader, the HDF5 chunk encoder), which oversubscribes them."""
+    import pyarrow
+
+    from .report import hdf5
+
+    pyarrow.set_cpu_count(threads)
+    hdf5.WRITE_THREADS = threads
+
+
+#: Modules the worker processes start with already imported (forkserver preload), so a
+#: worker does not pay pandas/matplotlib/h5py imports again for every night.
+WORKER_PRELOAD = ["pipeline.api", "pipeline.report.render", "pipeline.report.plots"]
+
+
+def _worker_context() -> multiprocessing.context.BaseContext:
+    """Start workers from a fork server that has imported the pipeline once (POSIX); spawn
+    elsewhere. Not plain fork: forking a process with threads is unsafe, and Python 3.14
+    moves away from it as the default too."""
+    if "forkserver" in multiprocessing.get_all_start_methods():
+        ctx = multiprocessing.get_context("forkserver")
+        ctx.set_forkserver_preload(WORKER_PRELOAD)
+        return ctx
+    return multiprocessing.get_context("spawn")
 
 
 def run_batch(
