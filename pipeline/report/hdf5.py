@@ -35,7 +35,6 @@ from __future__ import annotations
 
 import json
 import os
-import tempfile
 import zlib
 from collections import deque
 from collections.abc import Callable, Iterator, Mapping
@@ -48,6 +47,7 @@ import h5py
 import numpy as np
 import pandas as pd
 
+from ..atomic import atomic_path
 from ..data import FLAG_COLUMNS, ProcessResult
 from ..quantities import describe
 
@@ -447,13 +447,6 @@ def _fill(f: h5py.File, result: ProcessResult) -> None:
         _set_attrs(g, attrs)
 
 
-def _umask() -> int:
-    """The process umask (read by setting and restoring it)."""
-    mask = os.umask(0o022)
-    os.umask(mask)
-    return mask
-
-
 def write_result(path: Path, result: ProcessResult) -> Path:
     """Write ``result`` to the HDF5 file ``path`` atomically and return the path.
 
@@ -467,17 +460,8 @@ def write_result(path: Path, result: ProcessResult) -> Path:
     cannot be stored.
     """
     path = Path(path)
-    fd, tmp_name = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    os.close(fd)
-    tmp = Path(tmp_name)
-    try:
-        # mkstemp creates the file 0600; a result file should be readable as usual.
-        os.chmod(tmp, 0o666 & ~_umask())
+    with atomic_path(path) as tmp:
         # The temporary file is ours alone: no HDF5 file locking (fails on some NFS mounts).
         with h5py.File(tmp, "w", libver=LIBVER, track_order=True, locking=False) as f:
             _fill(f, result)
-        os.replace(tmp, path)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
     return path
