@@ -27,6 +27,9 @@ from scipy import fft as sp_fft
 from .intervals import mask_runs, median_step
 from .settings import resolve_settings
 
+#: Part of the cross-correlation maximum above which the peak's centre is taken.
+PEAK_FRACTION = 0.8
+
 #: Channels whose estimates set the common delay; the others get their own delay only when
 #: their own cross-correlation is good enough.
 PRIMARY_CHANNELS = ("co2", "o2")
@@ -87,38 +90,57 @@ def cross_correlation_delay(
     corr = correlate_full(delayed, reference) / norm
     lags = np.arange(-(reference.size - 1), delayed.size)  # signal.correlation_lags, "full"
     max_lag = int(np.ceil(max_delay_s / step))
-    window = (lags >= 0) & (lags <= max_lag)
+    # The peak is searched in 0..max_lag; its centre is measured on -max_lag..max_lag, so a
+    # broad peak near zero delay is not cut in half by the search edge.
+    window = (lags >= -max_lag) & (lags <= max_lag)
     c = np.abs(corr[window])
     lag = lags[window]
-    i = int(np.argmax(c))
+    search = lag >= 0
+    i = int(np.flatnonzero(search)[np.argmax(c[search])])
     quality = float(c[i])
     if i == c.size - 1:  # on the search edge: the true peak may lie beyond it
         return float(lag[i] * step), 0.0
-    frac = 0.0
-    if i > 0:
-        y0, y1, y2 = c[i - 1], c[i], c[i + 1]
-        denom = y0 - 2.0 * y1 + y2
-        if denom < 0:
-            frac = float(np.clip(0.5 * (y0 - y2) / denom, -0.5, 0.5))
-    return float((lag[i] + frac) * step), quality
+    # Centre of the peak: the weighted centroid of the contiguous stretch above
+    # PEAK_FRACTION of the maximum. Long ramps give broad, nearly flat-topped peaks whose
+    # maximum noise moves by seconds; their centre stays put (a parabola through the three top
+    # points is what a sharp peak would need, and the centroid gives the same there).
+    top = c >= PEAK_FRACTION * quality
+    lo = i - int(np.argmin(top[i::-1])) + 1 if not top[: i + 1].all() else 0
+    hi = i + int(np.argmin(top[i:])) if not top[i:].all() else c.size
+    w = c[lo:hi] - PEAK_FRACTION * quality
+    centre = float(np.sum(w * lag[lo:hi]) / np.sum(w)) if np.sum(w) > 0 else float(lag[i])
+    return centre * step, quality
+
+
+def transient_mask(ratio: np.ndarray, valid: np.ndarray, step: float, settings: dict) -> np.ndarray:
+    """Grid points where the fuel/air ratio is changing fast enough to count as a transient
+    (see module docstring)."""
+    med = np.median(ratio[valid]) if valid.any() else 0.0
+    if not np.isfinite(med) or med <= 0:
+        return np.zeros(ratio.shape, dtype=bool)
+    d = _smoothed_derivative(ratio, valid, step, settings["alignment_transient_window_s"])
+    return (
+        np.abs(d) * settings["alignment_transient_window_s"]
+        > settings["alignment_transient_fraction"] * med
+    )
 
 
 def count_transients(ratio: np.ndarray, valid: np.ndarray, step: float, settings: dict) -> int:
     """Number of separate transients of the fuel/air ratio (see module docstring)."""
-    med = np.median(ratio[valid]) if valid.any() else 0.0
-    if not np.isfinite(med) or med <= 0:
-        return 0
-    d = _smoothed_derivative(ratio, valid, step, settings["alignment_transient_window_s"])
-    moving = (
-        np.abs(d) * settings["alignment_transient_window_s"]
-        > settings["alignment_transient_fraction"] * med
-    )
-    runs = mask_runs(moving)
+    runs = mask_runs(transient_mask(ratio, valid, step, settings))
     if len(runs) == 0:
         return 0
     # transients closer than 10 s are one transient
     gaps = runs[1:, 0] - runs[:-1, 1]
     return int(1 + np.sum(gaps * step > 10.0))
+
+
+def _dilate(mask: np.ndarray, pad: int) -> np.ndarray:
+    """``mask`` widened by ``pad`` grid points on both sides (vectorised)."""
+    if pad <= 0 or not mask.any():
+        return mask
+    counts = np.convolve(mask.astype(np.int64), np.ones(2 * pad + 1, dtype=np.int64), "same")
+    return counts > 0
 
 
 def estimate_delays(
@@ -154,11 +176,21 @@ def estimate_delays(
         sampling = np.ones(grid.shape, dtype=bool)
     transients = count_transients(ratio_g, ratio_ok, step, settings)
     d_ref = _smoothed_derivative(ratio_g, ratio_ok, step, settings["alignment_smooth_s"])
+    # Only the stretches around transients carry information on the delay; elsewhere the
+    # derivatives are meter and analyzer noise that would bury the peak (on a night with few
+    # transients, e.g. a stoichiometric engine whose fuel/air ratio rarely moves). The window
+    # is widened by the longest delay searched, so the analyzers' answer lies inside it.
+    pad = int(np.ceil((settings["alignment_max_delay_s"] + settings["alignment_smooth_s"]) / step))
+    around = _dilate(transient_mask(ratio_g, ratio_ok, step, settings), pad)
+    if around.any():
+        d_ref = np.where(around, d_ref, 0.0)
     for col in gas_columns:
         if col not in frame:
             continue
         x_g, x_ok = _to_grid(time, frame[col].to_numpy(dtype=float), grid)
         d_x = _smoothed_derivative(x_g, x_ok & sampling, step, settings["alignment_smooth_s"])
+        if around.any():
+            d_x = np.where(around, d_x, 0.0)
         # the reference counts only where the analyzer samples, so zero/span periods add nothing
         d_r = np.where(d_x != 0.0, d_ref, 0.0)
         delays[col], quality[col] = cross_correlation_delay(
