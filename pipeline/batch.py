@@ -119,7 +119,7 @@ def process_night(
     from . import __version__
     from .api import process_to_files, run_stem
     from .config import load_config
-    from .summary import night_summary
+    from .console import night_summary
 
     t0 = time.perf_counter()
     path = Path(run)
