@@ -10,7 +10,7 @@ from __future__ import annotations
 import difflib
 import re
 import tomllib
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -322,7 +322,7 @@ def _parse_fuel(table: dict[str, Any], path: Path) -> Fuel:
             if k in table
         }
         if overrides:
-            fuel = Fuel(**{**{f: getattr(fuel, f) for f in fuel.__dataclass_fields__}, **overrides})
+            fuel = replace(fuel, **overrides)
         return fuel
     if "h_c" not in table:
         raise ConfigError(

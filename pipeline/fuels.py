@@ -9,9 +9,8 @@ air demand) is derived from those ratios. Fuels without carbon (hydrogen, ammoni
 from __future__ import annotations
 
 import tomllib
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from importlib import resources
-from typing import Any
 
 from . import constants as C
 
@@ -44,7 +43,6 @@ class Fuel:
     density_kg_per_m3: float | None = None
     source: str = ""
     description: str = ""
-    extra: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
 
     @property
     def has_carbon(self) -> bool:
