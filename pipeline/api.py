@@ -8,7 +8,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
@@ -25,7 +25,7 @@ from .checks import instrument_verdicts, run_checks
 from .checks.alignment import align_analyzers
 from .checks.intervals import make_clock
 from .config import Config, load_config
-from .data import FLAG_COLUMNS, ProcessResult, RunData, make_flags
+from .data import FLAG_COLUMNS, ProcessResult, RunData, columns_frame, make_flags
 from .ingest import read_run
 from .intervals import gap_flags
 from .quantities import DERIVED, GASES, INPUTS
@@ -147,6 +147,22 @@ def _provenance(cfg: Config, run: RunData, notes: list[str]) -> dict[str, Any]:
     return attrs
 
 
+def _join_columns(*parts: pd.DataFrame | Mapping[str, Any]) -> pd.DataFrame:
+    """The columns of ``parts`` side by side, without copying them (:func:`columns_frame`)."""
+    columns: dict[str, Any] = {}
+    for part in parts:
+        items = (
+            ((str(c), part[c].to_numpy()) for c in part.columns)
+            if isinstance(part, pd.DataFrame)
+            else part.items()
+        )
+        for name, values in items:
+            if name in columns:
+                raise ValueError(f"series {name!r} is produced by two stages")
+            columns[name] = values
+    return columns_frame(columns)
+
+
 #: Stage names reported to a progress callback, in order (process_to_files adds the last two).
 STAGES = ("reading", "aligning", "balance", "checks", "results", "writing", "report")
 
@@ -196,9 +212,7 @@ def process_run(
         gap_flags(logged["time"].to_numpy(), {c: logged[c].to_numpy() for c in essential})
     )
     progress("results")
-    series = pd.concat(
-        [frame.reset_index(drop=True), bal.derived, pd.DataFrame(checked.series)], axis=1
-    )
+    series = _join_columns(frame, bal.derived, checked.series)
     tables = dict(checked.tables)
     notes = run.meta.warnings + bal.warnings
     notes += _emission_results(frame, cfg, series, tables, delay)  # derived results, 1065.672
@@ -259,7 +273,7 @@ def process_to_files(
     """Process one night and write ``OUT/<run stem>.h5`` (atomically), its figures and its
     summary; ``progress`` is called with each stage name of :data:`STAGES`."""
     from .report import render_report
-    from .report.hdf5 import write_result
+    from .report.hdf5 import stored_series, write_result
 
     run_path = Path(run_path)
     out_dir = Path(out_dir)
@@ -268,6 +282,7 @@ def process_to_files(
     progress("writing")
     h5 = write_result(out_dir / f"{run_stem(run_path)}.h5", result)
     progress("report")
-    # Figures and summary are rebuilt from the result file alone.
-    outputs = render_report(h5, out_dir, plots=plots)
+    # Figures and summary are rebuilt from the result file alone (its time series taken from
+    # memory, where they are exactly the values just written).
+    outputs = render_report(h5, out_dir, plots=plots, series=stored_series(result))
     return NightOutcome(run=run_path, result_file=h5, figures=outputs, result=result)

@@ -5,15 +5,53 @@ ingest -> :class:`RunData` -> balance -> checks -> :class:`ProcessResult` -> rep
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pandas as pd
 
 #: Columns of the flags table (DESIGN.md result-file contract), in order.
 FLAG_COLUMNS = ("start_s", "end_s", "check", "suspect", "severity", "value", "message")
+
+
+def columns_frame(columns: Mapping[str, Any]) -> pd.DataFrame:
+    """A DataFrame of equal-length 1-D columns without copying them.
+
+    ``pd.DataFrame(dict)`` stacks the columns of one dtype into a 2-D block, i.e. copies every
+    column of a long night (hundreds of MB for the time series of a 12 h / 10 Hz night). Here
+    each 1-D NumPy column becomes a block of its own, a view of the given array, through
+    :func:`pandas.api.internals.create_dataframe_from_blocks` (pandas >= 3.0). The arrays must
+    not be modified in place afterwards (copy-on-write does not see such changes). Columns that
+    are not plain 1-D NumPy arrays, or an older pandas, take the ordinary constructor.
+    """
+    arrays = [np.asarray(v) if isinstance(v, np.ndarray | list) else v for v in columns.values()]
+    try:
+        from pandas.api.internals import create_dataframe_from_blocks
+    except ImportError:  # pandas < 3.0
+        return pd.DataFrame(dict(columns))
+    lengths = {len(a) for a in arrays if hasattr(a, "__len__")}
+    plain = all(
+        isinstance(a, np.ndarray) and a.ndim == 1 and a.dtype.kind in "biuf" for a in arrays
+    )
+    if not arrays or not plain or len(lengths) != 1:
+        return pd.DataFrame(dict(columns))
+    n = lengths.pop()
+    blocks = [(a.reshape(1, n), np.array([i], dtype=np.intp)) for i, a in enumerate(arrays)]
+    return create_dataframe_from_blocks(
+        blocks, index=pd.RangeIndex(n), columns=pd.Index(list(columns))
+    )
+
+
+def with_columns(frame: pd.DataFrame, updates: Mapping[str, Any]) -> pd.DataFrame:
+    """A new frame: the columns of ``frame`` (not copied), those in ``updates`` replaced, new
+    ones appended, built with :func:`columns_frame`. ``frame`` itself is not changed."""
+    columns: dict[str, Any] = {str(c): frame[c].to_numpy() for c in frame.columns}
+    columns.update(updates)
+    return columns_frame(columns)
 
 
 def empty_flags() -> pd.DataFrame:

@@ -8,6 +8,7 @@ report shows can be re-plotted from the :class:`ResultFile` alone.
 from __future__ import annotations
 
 import json
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
@@ -17,7 +18,7 @@ import h5py
 import numpy as np
 import pandas as pd
 
-from .data import FLAG_COLUMNS, empty_flags
+from .data import FLAG_COLUMNS, columns_frame, empty_flags
 
 #: Attributes HDF5 manages itself for dimension scales (not part of our metadata).
 _SCALE_ATTRS = frozenset({"CLASS", "NAME", "DIMENSION_LIST", "REFERENCE_LIST", "_Netcdf4Dimid"})
@@ -114,18 +115,35 @@ def _table(g: h5py.Group) -> pd.DataFrame:
     return df
 
 
-def read_result(path: str | Path) -> ResultFile:
-    """Read a dynoqc result file written by :func:`pipeline.report.hdf5.write_result`."""
+def read_result(
+    path: str | Path, *, series: Mapping[str, np.ndarray] | None = None
+) -> ResultFile:
+    """Read a dynoqc result file written by :func:`pipeline.report.hdf5.write_result`.
+
+    ``series``: the values of ``/timeseries/`` already in memory, exactly as written (see
+    :func:`pipeline.report.hdf5.stored_series`); then only the attributes and tables are read
+    from the file, which saves decoding a night's worth of series right after writing them.
+    They must hold every series of the file, at its length.
+    """
     path = Path(path)
     with h5py.File(path, "r", locking="best-effort") as f:
         if "timeseries" not in f or "time" not in f["timeseries"]:
             raise ValueError(f"{path}: not a dynoqc result file (no /timeseries/time)")
         ts = f["timeseries"]
         names = ["time"] + [n for n in ts if n != "time" and isinstance(ts[n], h5py.Dataset)]
-        from .report.hdf5 import read_series  # threaded chunk decoding, same values
+        if series is None:
+            from .report.hdf5 import read_series  # threaded chunk decoding, same values
 
-        arrays = read_series(ts, names)
-        timeseries = pd.DataFrame({n: np.asarray(arrays[n], dtype=np.float64) for n in names})
+            arrays = read_series(ts, names)
+        else:
+            n_rows = ts["time"].shape[0]
+            wrong = [n for n in names if n not in series or len(series[n]) != n_rows]
+            if wrong:
+                raise ValueError(f"{path}: series given in memory do not match {wrong[:3]}")
+            arrays = series
+        timeseries = columns_frame(
+            {n: np.asarray(arrays[n], dtype=np.float64) for n in names}
+        )
         series_attrs = {n: _attrs(ts[n]) for n in names}
         units = {n: str(a.get("units", "")) for n, a in series_attrs.items()}
         long_names = {n: str(a.get("long_name", "")) for n, a in series_attrs.items()}
@@ -166,3 +184,32 @@ def read_result(path: str | Path) -> ResultFile:
         start_time=start_time,
         path=path,
     )
+
+
+def provenance(res: ResultFile) -> tuple[str, str]:
+    """(run name, one-line provenance) for title blocks and summaries, from the root
+    attributes: run date, fuel, config name, source file with short SHA-256, tool version."""
+    a = res.attrs
+    source = str(a.get("source_file", "") or "")
+    run = str(
+        a.get("run_name")
+        or (Path(source).name.split(".")[0] if source else "")
+        or (res.path.stem if res.path else "unnamed run")
+    )
+    if res.start_time is not None:
+        when = f"run start {res.start_time:%Y-%m-%d %H:%M} UTC"
+    elif a.get("created_utc"):
+        when = f"processed {str(a['created_utc'])[:10]} (run start unknown)"
+    else:
+        when = "run date unknown"
+    fuel = a.get("fuel_name") or a.get("fuel_preset")
+    if not fuel and isinstance(a.get("fuel"), dict):
+        fuel = a["fuel"].get("name")
+    config = a.get("config_name") or a.get("config_file")
+    parts = [when, f"fuel {fuel or 'unknown'}"]
+    parts.append(f"config {Path(str(config)).name if config else 'unknown'}")
+    if source:
+        sha = str(a.get("source_sha256", "") or "")
+        parts.append(f"source {Path(source).name}" + (f" [{sha[:10]}]" if sha else ""))
+    parts.append(f"dynoqc {a.get('tool_version', '?')}")
+    return run, "  \u00b7  ".join(parts)

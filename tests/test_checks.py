@@ -448,3 +448,21 @@ def test_summary_lines_count_flags() -> None:
     assert lines[0].startswith("co2")
     assert any(line.startswith("o2") and "drift" in line for line in lines)
     assert lines[-1].startswith("flags:") and "drift" in lines[-1]
+
+
+def test_correlation_equals_scipy_signal_correlate() -> None:
+    # Reference library: scipy.signal.correlate(mode="full", method="fft") and
+    # scipy.fft.next_fast_len(n, real=True); the alignment stage uses numpy.fft only.
+    from scipy.fft import next_fast_len as scipy_next_fast_len
+    from scipy.signal import correlate
+
+    from pipeline.checks.alignment import correlate_full, next_fast_len
+
+    for n in [*range(1, 2000), 432_001, 864_003, 4_320_007]:
+        assert next_fast_len(n) == scipy_next_fast_len(n, True), n
+    rng = np.random.default_rng(7)
+    for na, nb in [(1000, 1000), (10007, 5003), (3, 11)]:
+        a, b = rng.normal(size=na), rng.normal(size=nb)
+        np.testing.assert_allclose(
+            correlate_full(a, b), correlate(a, b, mode="full", method="fft"), atol=1e-9
+        )

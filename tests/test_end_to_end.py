@@ -162,3 +162,16 @@ def test_results_do_not_depend_on_the_input_units(tmp_path):
     for name in ("lambda_flow", "lambda_carbon", "lambda_oxygen", "co2_mass_flow"):
         np.testing.assert_allclose(rb.series[name], ra.series[name], rtol=1e-4, equal_nan=True)
     pd.testing.assert_frame_equal(ra.flags, rb.flags)
+
+
+def test_no_plots_writes_no_figure_and_never_imports_matplotlib(tmp_path):
+    probe = (
+        "import sys; from pipeline.api import process_to_files; "
+        f"o = process_to_files({str(SAMPLE)!r}, {str(CONFIG)!r}, {str(tmp_path)!r}, plots=False); "
+        "print(sorted(p.suffix for p in o.figures), 'matplotlib' in sys.modules, "
+        "'scipy' in sys.modules)"
+    )
+    out = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True,
+                         check=True)
+    assert out.stdout.strip() == "['.json', '.md'] False False"
+    assert sorted(p.suffix for p in tmp_path.iterdir()) == [".h5", ".json", ".md"]

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import json
-import time
 from pathlib import Path
 
 import matplotlib.image as mpimg
@@ -312,7 +311,7 @@ def test_render_report_writes_figures_and_summary(night: Path, tmp_path: Path) -
 def test_render_report_no_plots_and_skip_notes(tmp_path: Path) -> None:
     path = _result(tmp_path, drop=("sample_line_temperature",))
     out = render_report(path, tmp_path / "a", plots=False)
-    assert sorted(p.suffix for p in out) == [".json", ".md", ".pdf"]
+    assert sorted(p.suffix for p in out) == [".json", ".md"]  # no figures, no PDF page
     out = render_report(path, tmp_path / "b")
     assert not (tmp_path / "b" / "night_water.png").exists()
     s = json.loads((tmp_path / "b" / "night_summary.json").read_text())
@@ -327,10 +326,28 @@ def test_summary_without_flags_says_all_agree(tmp_path: Path) -> None:
     assert "No flags." in markdown(s)
 
 
-def test_long_night_renders_within_seconds(tmp_path: Path) -> None:
-    path = _result(tmp_path, rate_hz=10.0, hours=12.0, name="long.h5")  # 432 000 rows
-    t0 = time.perf_counter()
+def test_long_night_renders_every_figure(tmp_path: Path) -> None:
+    # A 12 h / 10 Hz night (432 000 rows) goes through the decimated plotting paths; its
+    # speed is measured in benchmarks/, never asserted here.
+    path = _result(tmp_path, rate_hz=10.0, hours=12.0, name="long.h5")
     out = render_report(path, tmp_path)
-    elapsed = time.perf_counter() - t0
     assert sum(p.suffix == ".png" for p in out) == 7
-    assert elapsed < 20.0, f"rendering took {elapsed:.1f} s"
+
+
+def test_report_from_memory_equals_report_from_file(night: Path, tmp_path: Path) -> None:
+    # process_to_files hands the series just written to the report instead of decoding them
+    # again; the ResultFile and the summary must be the same either way.
+    import h5py
+
+    from pipeline.report.hdf5 import read_series
+
+    with h5py.File(night) as f:
+        series = read_series(f["timeseries"], list(f["timeseries"]))
+    a, b = read_result(night), read_result(night, series=series)
+    pd.testing.assert_frame_equal(a.timeseries, b.timeseries)
+    assert a.series_attrs == b.series_attrs and a.attrs == b.attrs
+    pd.testing.assert_frame_equal(a.flags, b.flags)
+    sa, sb = build_summary(a), build_summary(b)
+    assert sa == sb
+    with pytest.raises(ValueError, match="do not match"):
+        read_result(night, series={k: v[:-1] for k, v in series.items()})

@@ -392,3 +392,45 @@ def test_read_series_matches_hdf5_decoding(tmp_path: Path) -> None:
                 want = grp[name][()]
                 assert got[name].dtype == want.dtype, name
                 assert np.array_equal(got[name], want, equal_nan=True), name
+
+
+def test_columns_frame_equals_the_pandas_constructor_without_copying() -> None:
+    # The no-copy frame (pandas' block API) must be the frame pandas itself builds.
+    from pipeline.data import columns_frame, with_columns
+
+    rng = np.random.default_rng(3)
+    cols = {"time": np.arange(1000.0), "a": rng.normal(size=1000), "ok": rng.random(1000) > 0.5,
+            "n": np.arange(1000)}
+    df = columns_frame(cols)
+    pd.testing.assert_frame_equal(df, pd.DataFrame(cols))
+    assert np.shares_memory(df["a"].to_numpy(), cols["a"])
+    pd.testing.assert_frame_equal(df[df["ok"]], pd.DataFrame(cols)[cols["ok"]])
+    new = with_columns(df, {"a": -cols["a"], "b": cols["a"] * 2})
+    assert list(new.columns) == ["time", "a", "ok", "n", "b"]
+    np.testing.assert_array_equal(new["a"], -cols["a"])
+    np.testing.assert_array_equal(df["a"], cols["a"])  # the original frame is unchanged
+    mixed = columns_frame({"s": ["x"] * 3, "v": np.ones(3)})  # not all numeric: pandas builds it
+    assert mixed["s"].tolist() == ["x"] * 3
+
+
+def test_stored_series_are_the_values_in_the_file(tmp_path: Path) -> None:
+    # What process_to_files hands to the report from memory equals what the file holds.
+    from pipeline.report.hdf5 import read_series, stored_series
+
+    n = 70000  # more than one chunk
+    t = np.arange(n, dtype=float)
+    x = np.sin(t / 1e3)
+    x[5] = np.inf
+    x[7] = -np.inf
+    res = ProcessResult(
+        series=pd.DataFrame({"time": t, "lambda_flow": x, "steady": (t % 2 == 0)}),
+        series_attrs={"steady": {"units": "1", "long_name": "steady mask"}}, flags=empty_flags(),
+    )
+    path = write_result(tmp_path / "r.h5", res)
+    mem = stored_series(res)
+    with h5py.File(path) as f:
+        disk = read_series(f["timeseries"], list(f["timeseries"]))
+    assert set(mem) == set(disk)
+    for name in mem:
+        np.testing.assert_array_equal(mem[name], disk[name])
+    assert np.isnan(mem["lambda_flow"][[5, 7]]).all() and np.isinf(x[5])  # input unchanged

@@ -14,7 +14,7 @@ import pandas as pd
 
 from .. import constants as C
 from ..config import Config
-from ..data import make_flags
+from ..data import columns_frame, make_flags
 from ..errors import ConfigError
 from ..fuels import Fuel
 from ..intervals import mask_to_intervals, runs
@@ -239,8 +239,7 @@ def compute_balance(
 
     exhaust_ok = np.isfinite(lam_oxygen) & (np.isfinite(lam_carbon) | (not fuel.has_carbon))
     valid = np.isfinite(lam_flow) & exhaust_ok
-    derived = pd.DataFrame(
-        {
+    derived_cols: dict[str, np.ndarray] = {
             "lambda_flow": lam_flow,
             "lambda_carbon": lam_carbon,
             "lambda_oxygen": lam_oxygen,
@@ -250,8 +249,7 @@ def compute_balance(
             "air_dry_mass_flow": air_dry,
             "sampling": sampling.astype(float),
             "valid": valid.astype(float),
-        }
-    )
+    }
     extra = _derived_results(frame, config, chem, x_h2o_int, x_h2o_exh, x_h2o_dryer, basis)
     if config.extra_lambda:
         o2_dry_all = None
@@ -260,7 +258,7 @@ def compute_balance(
         methods, notes = _extra_lambdas(config, chem, o2_dry_all, n)
         extra.update(methods)
         warnings.extend(notes)
-    derived = pd.concat([derived, pd.DataFrame(extra)], axis=1)
+    derived = columns_frame({**derived_cols, **extra})
 
     fuel_on = np.nan_to_num(fuel_flow, nan=0.0) > 0
     rows = _condensation_flags(frame, t, dew, s.condensation_margin_K)

@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
+from ..data import with_columns
 from ..intervals import runs
 
 if TYPE_CHECKING:
@@ -140,7 +141,7 @@ def apply_drift_correction(
         return None, None, []
     t = frame["time"].to_numpy(float)
     mode = frame["analyzer_mode"].to_numpy(float) if "analyzer_mode" in frame else None
-    out = frame.copy()
+    corrected: dict[str, np.ndarray] = {}
     rows = []
     notes: list[str] = []
     for gas, ref in dc.gases.items():
@@ -173,7 +174,7 @@ def apply_drift_correction(
                 rows.append((gas, r.kind, "log", r.start_s, r.end_s, r.value))
         pre_z, post_z = pre_post(t, found, "zero", ref_zero)
         pre_s, post_s = pre_post(t, found, "span", ref_span)
-        out[gas] = drift_correct(frame[gas].to_numpy(float), ref_zero, ref_span,
+        corrected[gas] = drift_correct(frame[gas].to_numpy(float), ref_zero, ref_span,
                                  pre_z, pre_s, post_z, post_s)
         uncovered = ~np.isfinite(post_z + post_s)
         if mode is not None:  # zero/span/purge samples themselves need no correction
@@ -203,4 +204,4 @@ def apply_drift_correction(
         "start_s": "s", "end_s": "s", "value": "mol/mol", "reference": "mol/mol",
         "error_pct_of_span": "percent",
     }
-    return out, readings, notes
+    return with_columns(frame, corrected), readings, notes

@@ -31,6 +31,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from ..data import columns_frame
+
 #: 1.4826: MAD of a normal sample times this estimates its standard deviation.
 MAD_TO_SIGMA = 1.4826
 
@@ -60,8 +62,9 @@ def block_samples(
         next_id += nb
         point_of_block += [p] * nb
     sel = (block >= 0) & judged
-    df = pd.DataFrame({k: np.asarray(v, dtype=float)[sel] for k, v in residuals.items()})
-    df["time"] = time[sel]
+    df = columns_frame(
+        {**{k: np.asarray(v, dtype=float)[sel] for k, v in residuals.items()}, "time": time[sel]}
+    )
     g = df.groupby(block[sel])
     out = g[list(residuals)].median()
     out.insert(0, "samples", g["time"].size())

@@ -108,11 +108,26 @@ def steady_points_table(
             out[f"{name}_mean"] = np.empty(0)
             out[f"{name}_std"] = np.empty(0)
         return out
-    df = pd.DataFrame({k: np.asarray(v, dtype=float)[sel] for k, v in columns.items()})
-    g = df.groupby(pid[sel])
-    means = g.mean().reindex(range(len(runs)))
-    stds = g.std().reindex(range(len(runs)))
-    for name in columns:
-        out[f"{name}_mean"] = means[name].to_numpy()
-        out[f"{name}_std"] = stds[name].to_numpy()
+    k = len(runs)
+    for name, values in columns.items():
+        out[f"{name}_mean"], out[f"{name}_std"] = _group_mean_std(
+            pid, sel & np.isfinite(values), np.asarray(values, dtype=float), k
+        )
     return out
+
+
+def _group_mean_std(
+    group: np.ndarray, use: np.ndarray, values: np.ndarray, k: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Mean and sample standard deviation (ddof 1) of ``values[use]`` per group id 0..k-1,
+    two-pass (deviations from the group mean, so long steady points lose no precision); NaN
+    for a group with no sample (mean) or fewer than two (std)."""
+    g = group[use]
+    x = values[use]
+    count = np.bincount(g, minlength=k).astype(float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.bincount(g, weights=x, minlength=k) / count
+        ss = np.bincount(g, weights=(x - mean[g]) ** 2, minlength=k)
+        std = np.sqrt(ss / (count - 1.0))
+    std[count < 2] = np.nan
+    return mean, std

@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from ..config import UNIT_FROM_FILE, Channel, Config
-from ..data import RunData, RunMeta
+from ..data import RunData, RunMeta, columns_frame
 from ..errors import ConfigError, InputDataError
 from ..quantities import INPUTS
 from ..units import Conversion, conversion, is_known_unit
@@ -631,17 +631,18 @@ def build_run(src: Source, config: Config) -> RunData:
 
     out: dict[str, np.ndarray] = {"time": t_new}
     n = rows.size
+    whole = n == t_sec.size  # every row kept, in order: no need to copy the columns
     for q in (q for q in INPUTS if q in channels and q != "time"):
         ch = channels[q]
         if q in values:
-            out[q] = values[q][rows]
+            out[q] = values[q] if whole else values[q][rows]
         else:
             assert ch.value is not None
             v = float(convs[q](np.float64(ch.value)))
             if q == "thc" and ch.carbon_number != 1:
                 v *= ch.carbon_number
             out[q] = np.full(n, v)
-    return RunData(frame=pd.DataFrame(out), meta=meta)
+    return RunData(frame=columns_frame(out), meta=meta)
 
 
 def _report_zero_fuel(

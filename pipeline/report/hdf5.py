@@ -205,6 +205,18 @@ def _write_timeseries(f: h5py.File, result: ProcessResult) -> None:
         datasets[name].dims[0].attach_scale(tm)
 
 
+def stored_series(result: ProcessResult) -> dict[str, np.ndarray]:
+    """The values :func:`write_result` stores in ``/timeseries/``, per series: float64 with
+    every infinity as NaN. Views of ``result.series`` where nothing needs changing."""
+    out = {}
+    for name in result.series.columns:
+        arr = _series_array(result.series[name], str(name))
+        if np.isinf(arr).any():
+            arr = np.where(np.isinf(arr), np.nan, arr)
+        out[str(name)] = arr
+    return out
+
+
 def _series_array(values: pd.Series, name: str) -> np.ndarray:
     """A series as a float64 array: a view when it already is one (infinities are replaced
     chunk by chunk while encoding), else a converted copy without infinities."""

@@ -10,8 +10,11 @@ figure is listed with its reason in the summary, never drawn as an empty axes.
 from __future__ import annotations
 
 import warnings
+from collections.abc import Mapping
 from importlib import import_module
 from pathlib import Path
+
+import numpy as np
 
 #: Figure modules in report order (``pipeline.report.<module>``).
 FIGURE_MODULES = (
@@ -44,21 +47,28 @@ def render_figures(res: object, out_dir: Path, stem: str) -> tuple[list[Path], d
 
 
 def render_report(
-    result_path: str | Path, out_dir: str | Path, *, plots: bool = True
+    result_path: str | Path,
+    out_dir: str | Path,
+    *,
+    plots: bool = True,
+    series: Mapping[str, np.ndarray] | None = None,
 ) -> list[Path]:
     """Write the report outputs of ``result_path`` into ``out_dir``; return their paths.
 
-    Always the summary (``<stem>_summary.md``, ``.pdf``, ``.json``); with ``plots`` the
-    figures ``<stem>_<figure>.png`` (see :data:`FIGURE_MODULES`). Figures first, then the
-    summary, which lists the figures written and skipped.
+    Always the summary as Markdown and JSON (``<stem>_summary.md``, ``.json``); with
+    ``plots`` also the figures ``<stem>_<figure>.png`` (see :data:`FIGURE_MODULES`) and the
+    one-page PDF summary (``<stem>_summary.pdf``); both need matplotlib, which ``plots=False``
+    never imports. Figures first, then the summary, which lists the figures written and
+    skipped. ``series``: the time series of the file already in memory (see
+    :func:`pipeline.result.read_result`); the report is the same, only faster.
     """
     from ..result import read_result
-    from .summary import build_summary, write_json, write_markdown, write_pdf
+    from .summary import build_summary, write_json, write_markdown
 
     result_path = Path(result_path)
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
-    res = read_result(result_path)
+    res = read_result(result_path, series=series)
     stem = result_path.stem
     figures: list[Path] = []
     skipped: dict[str, str] = {}
@@ -67,6 +77,9 @@ def render_report(
     summary = build_summary(res, figures, skipped)
     outputs = list(figures)
     outputs.append(write_markdown(summary, out_dir / f"{stem}_summary.md"))
-    outputs.append(write_pdf(summary, out_dir / f"{stem}_summary.pdf"))
+    if plots:
+        from .summary import write_pdf
+
+        outputs.append(write_pdf(summary, out_dir / f"{stem}_summary.pdf"))
     outputs.append(write_json(summary, out_dir / f"{stem}_summary.json"))
     return outputs

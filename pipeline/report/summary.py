@@ -18,9 +18,8 @@ from typing import Any
 import numpy as np
 
 from ..atomic import atomic_path
-from ..result import ResultFile
+from ..result import ResultFile, provenance
 from . import reportdata as rd
-from .plots import provenance
 
 #: Page size of the PDF summary [in]: A4 portrait.
 A4_IN = (8.27, 11.69)
