@@ -9,13 +9,11 @@ For notebooks::
 
 from __future__ import annotations
 
-from importlib.metadata import PackageNotFoundError, version
 from typing import Any
 
-try:
-    __version__ = version("dynoqc")
-except PackageNotFoundError:  # running from a source tree that is not installed
-    __version__ = "0.0.0+unknown"
+#: The one place the version is written; pyproject.toml reads it from here (importing
+#: importlib.metadata instead would cost every start of ``dynoqc`` about 40 ms).
+__version__ = "0.1.0"
 
 __all__ = ["__version__", "process_run", "process_to_files", "read_result"]
 
