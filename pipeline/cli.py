@@ -63,7 +63,8 @@ def main() -> None:
     "--out", "-o", "out_dir", default=Path("out"), show_default=True,
     type=click.Path(file_okay=False, path_type=Path), help="Folder for results.",
 )
-@click.option("--no-plots", is_flag=True, help="Write the result file and summary, no figures.")
+@click.option("--no-plots", is_flag=True,
+              help="Result file and Markdown/JSON summary only: no PNG figures, no PDF page.")
 @click.option("--jobs", "-j", default=1, show_default=True, type=click.IntRange(min=1),
               help="Nights processed in parallel (local process pool).")
 @click.option("--scheduler", default=None, metavar="ADDRESS",
@@ -175,7 +176,8 @@ def inspect(run: Path, config_path: Path | None, as_json: bool, write_path: Path
 @click.option("--out", "-o", "out_dir", default=None,
               type=click.Path(file_okay=False, path_type=Path),
               help="Folder for the figures and summary (default: beside the result file).")
-@click.option("--no-plots", is_flag=True, help="Write the summary only, no figures.")
+@click.option("--no-plots", is_flag=True,
+              help="Markdown/JSON summary only: no PNG figures, no PDF page.")
 @click.option("--debug", is_flag=True, help="Show tracebacks of errors.")
 def report(result: Path, out_dir: Path | None, no_plots: bool, debug: bool) -> None:
     """Re-render the figures and summary of an existing RESULT file (.h5)."""
