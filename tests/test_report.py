@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import json
+import re
+import zlib
 from pathlib import Path
 
 import matplotlib.image as mpimg
@@ -20,7 +22,7 @@ from pipeline.report.plots import FigureSkipped
 from pipeline.report.render import render_report
 from pipeline.report.residuals import drift_row
 from pipeline.report.steady_table import table_data
-from pipeline.report.summary import build_summary, markdown
+from pipeline.report.summary import build_summary, markdown, write_pdf
 from pipeline.report.water import water_data
 from pipeline.result import read_result
 
@@ -351,3 +353,36 @@ def test_report_from_memory_equals_report_from_file(night: Path, tmp_path: Path)
     assert sa == sb
     with pytest.raises(ValueError, match="do not match"):
         read_result(night, series={k: v[:-1] for k, v in series.items()})
+
+
+# ---------------------------------------------------------------------------------------
+# the PDF page: the core font Helvetica when the text allows it, else the embedded default
+# ---------------------------------------------------------------------------------------
+def _page_fonts(pdf: bytes) -> set[str]:
+    return set(re.findall(rb"/BaseFont /([A-Za-z0-9+-]+)", pdf))
+
+
+def _embedded(pdf: bytes) -> bool:
+    return b"/FontFile" in pdf or b"/CharProcs" in pdf
+
+
+def test_pdf_uses_core_helvetica_for_latin_text(tmp_path: Path) -> None:
+    s = build_summary(read_result(_result(tmp_path)))
+    pdf = write_pdf(s, tmp_path / "a.pdf").read_bytes()
+    assert pdf.startswith(b"%PDF")
+    # PDF 32000-1:2008 §9.6.2.2: the 14 standard Type 1 fonts need no embedding.
+    assert {b"Helvetica", b"Helvetica-Bold"} <= _page_fonts(pdf)
+    assert not _embedded(pdf)
+    streams = b"".join(
+        zlib.decompress(m) for m in re.findall(rb"stream\r?\n(.*?)\r?\nendstream", pdf, re.S)
+        if m[:1] == b"x"
+    )
+    assert b"Night summary" in streams  # the text is there as text
+
+
+def test_pdf_falls_back_to_an_embedded_font_outside_windows_1252(tmp_path: Path) -> None:
+    s = build_summary(read_result(_result(tmp_path)))
+    s["description"] = "Pr\u00fcfstand B3, \u03bb-Sonde"  # Greek lambda: not in the core set
+    pdf = write_pdf(s, tmp_path / "b.pdf").read_bytes()
+    assert _embedded(pdf)
+    assert b"Helvetica" not in b"".join(_page_fonts(pdf))

@@ -12,6 +12,8 @@ from __future__ import annotations
 import json
 import math
 import textwrap
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
@@ -303,6 +305,39 @@ def write_pdf(s: dict[str, Any], path: Path) -> Path:
         p.text(f"skipped {name}: {why}", size=7.5, gap=0.0)
     meta = {"Title": f"dynoqc night summary: {s['run']}", "Creator": None, "Producer": None,
             "CreationDate": None}
-    with atomic_path(path) as tmp, PdfPages(tmp, metadata=meta) as pdf:
+    with atomic_path(path) as tmp, _pdf_fonts(fig), PdfPages(tmp, metadata=meta) as pdf:
         pdf.savefig(fig)
     return path
+
+
+def _core_font_text(fig: Any) -> bool:
+    """True when every text of ``fig`` is in the Windows-1252 set of the PDF core fonts."""
+    try:
+        for t in fig.texts:
+            t.get_text().encode("cp1252")
+    except UnicodeEncodeError:
+        return False
+    return True
+
+
+@contextmanager
+def _pdf_fonts(fig: Any) -> Iterator[None]:
+    """Text of the page in the PDF core font Helvetica (not embedded: every PDF reader has
+    it; the page is written in a tenth of the time and is a few kB) when all of it is in
+    that font's character set, else in the embedded default font (e.g. a cell description in
+    Greek or CJK script)."""
+    import logging
+
+    import matplotlib
+
+    if not _core_font_text(fig):
+        yield
+        return
+    log = logging.getLogger("matplotlib.font_manager")
+    level = log.level
+    log.setLevel(logging.ERROR)  # "Helvetica: weight normal not found, using medium" notes
+    try:
+        with matplotlib.rc_context({"pdf.use14corefonts": True}):
+            yield
+    finally:
+        log.setLevel(level)
