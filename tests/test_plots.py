@@ -13,10 +13,14 @@ from pipeline.data import ProcessResult, make_flags
 from pipeline.report.hdf5 import write_result
 from pipeline.report.overview import plot_lambda_overview
 from pipeline.report.plots import (
+    BINS_PER_PIXEL,
+    ENVELOPE_BINS_PER_PIXEL,
     bin_mean,
     envelope,
+    envelope_bins,
     robust_limits,
     style_path,
+    write_png,
 )
 from pipeline.result import read_result
 
@@ -81,6 +85,70 @@ def test_bin_mean_matches_numpy() -> None:
     assert np.isnan(mean[1])
     np.testing.assert_allclose(mean[3], y[300:400].mean(), rtol=1e-12)
     np.testing.assert_allclose(centres[0], 999 / 20, rtol=1e-12)
+
+
+def test_envelope_time_ordered_path_matches_the_general_one() -> None:
+    """Time-ordered samples take a sort-free path; it picks the same samples as the
+    sort-based path taken for unordered input."""
+    rng = np.random.default_rng(5)
+    n, n_bins = 30_000, 700
+    t = np.sort(rng.uniform(0.0, 3600.0, n))
+    y = rng.normal(1.0, 0.05, n)
+    y[rng.random(n) < 0.05] = np.nan
+    y[2_000:4_000] = np.nan  # empty bins
+    y[rng.integers(0, n, 20)] = np.inf
+    t[rng.integers(0, n, 10)] = np.nan  # dropped before binning
+    fast = envelope(t, y, n_bins)
+    order = rng.permutation(n)
+    slow = envelope(t[order], y[order], n_bins)
+    for a, b in zip(fast, slow, strict=True):
+        np.testing.assert_array_equal(a, b)
+    assert np.isnan(envelope(t, np.full(n, np.nan), n_bins)[1]).all()
+
+
+def test_envelope_ties_take_the_first_minimum_and_the_last_maximum() -> None:
+    t = np.arange(12, dtype=np.float64)
+    y = np.array([2.0, 1, 3, 1, 3, 2, 5, 5, 4, 4, 6, 4])  # bins of 4 samples
+    ex, ey = envelope(t, y, 3)
+    np.testing.assert_array_equal(ex, [1, 2, 5, 7, 8, 10])
+    np.testing.assert_array_equal(ey, [1, 3, 2, 5, 4, 6])
+
+
+def test_bin_mean_time_ordered_path_matches_the_general_one() -> None:
+    rng = np.random.default_rng(6)
+    t = np.sort(rng.uniform(0.0, 1000.0, 20_000))
+    y = rng.normal(size=t.size)
+    y[rng.random(t.size) < 0.1] = np.nan
+    order = rng.permutation(t.size)
+    c1, m1 = bin_mean(t, y, 300)
+    c2, m2 = bin_mean(t[order], y[order], 300)
+    np.testing.assert_array_equal(c1, c2)
+    np.testing.assert_allclose(m1, m2, rtol=1e-12, atol=1e-15)
+
+
+def test_envelope_bins_one_per_pixel_but_short_traces_stay_whole() -> None:
+    width = 1600.0
+    assert envelope_bins(10**6, width) == int(ENVELOPE_BINS_PER_PIXEL * width)
+    fine = int(BINS_PER_PIXEL * width)
+    assert envelope_bins(2 * fine, width) == fine  # drawn sample by sample, as before
+    t = np.arange(2 * fine, dtype=np.float64)
+    ex, _ = envelope(t, np.sin(t), envelope_bins(t.size, width))
+    np.testing.assert_array_equal(ex, t)
+
+
+def test_write_png_round_trip(tmp_path: Path) -> None:
+    from PIL import Image
+
+    rng = np.random.default_rng(7)
+    rgba = rng.integers(0, 256, size=(37, 53, 4), dtype=np.uint8)
+    path = write_png(tmp_path / "x.png", rgba, 200)
+    with Image.open(path) as im:
+        assert im.mode == "RGBA" and im.size == (53, 37)
+        np.testing.assert_array_equal(np.asarray(im), rgba)
+        assert round(im.info["dpi"][0]) == 200
+        assert set(im.info) == {"dpi"}  # no software tag or other text
+    with pytest.raises(ValueError, match="RGBA"):
+        write_png(tmp_path / "y.png", rgba[..., :3], 200)
 
 
 def test_robust_limits_ignore_a_spike() -> None:

@@ -28,6 +28,7 @@ from .plots import (
     SPAN_STYLE,
     bin_mean,
     envelope,
+    envelope_bins,
     format_time_axis,
     night_x,
     report_figure,
@@ -194,7 +195,7 @@ def _draw_series(
     """One estimate: min/max envelope (light) plus bin mean (styled line); marks values beyond
     the y range at the axis edge. Returns (legend handles, whether anything is beyond)."""
     st = SERIES_STYLE[name]
-    ex, ey = envelope(x, v, n_bins)
+    ex, ey = envelope(x, v, envelope_bins(int(np.isfinite(x).sum()), FIGSIZE[0] * DPI))
     label = st["label"] + ("" if unit in ("1", "") else f" [{unit}]")
     if ex.size > np.isfinite(x).sum():  # short trace: drawn as it is (with gap breaks)
         ax.plot(ex, ey, color=st["color"], linestyle=st["linestyle"], linewidth=1.2, zorder=2)

@@ -7,6 +7,10 @@ Steady-point statistics are recomputed from ``/timeseries/`` over the windows of
 ``/steady_points/`` table (or of the ``steady`` mask when the table is absent), using only the
 samples that are steady, valid and taken while the analyzers sample exhaust. That keeps a
 zero/span window or a logger dropout inside a steady window out of the means.
+
+The per-sample point index and the steady-point and block statistics are computed once per
+result object (several figures and the summary use them; see :func:`_memo`); callers get
+copies.
 """
 
 from __future__ import annotations
@@ -87,6 +91,34 @@ EMISSIONS: dict[str, str] = {
 MIN_OVERLAP = 0.2
 
 _SEVERITY_RANK = {"info": 0, "warning": 1, "error": 2}
+
+#: Attribute of a ResultFile holding the memo of :func:`_memo`.
+_MEMO_ATTR = "_reportdata_memo"
+
+
+def _memo(res: ResultFile, key: tuple[Any, ...], compute: Any) -> Any:
+    """``compute()`` once per result file and ``key``: several figures and the summary need
+    the same per-sample index and steady-point means of a 400 000-row night.
+
+    The memo lives on ``res`` and is dropped when ``res.timeseries``, ``res.flags``,
+    ``res.tables`` or ``res.attrs`` is replaced or a column is added or removed (the report
+    treats a read result as read-only; in-place edits of values are not detected).
+    """
+    ts = res.timeseries
+    state = (ts, res.flags, res.tables, res.attrs, ts.shape, tuple(ts.columns))
+    memo = res.__dict__.get(_MEMO_ATTR)
+    if memo is None or not _same_state(memo["state"], state):
+        memo = {"state": state, "values": {}}
+        res.__dict__[_MEMO_ATTR] = memo
+    values = memo["values"]
+    if key not in values:
+        values[key] = compute()
+    return values[key]
+
+
+def _same_state(a: tuple[Any, ...], b: tuple[Any, ...]) -> bool:
+    """The first four entries are objects (compared by identity), the rest values."""
+    return all(x is y for x, y in zip(a[:4], b[:4], strict=True)) and a[4:] == b[4:]
 
 
 # ------------------------------------------------------------------------------------------
@@ -186,7 +218,13 @@ def point_index(res: ResultFile, windows: pd.DataFrame | None = None) -> np.ndar
     A sample belongs to a point when it lies in the point's window, is flagged ``steady``
     (when that series exists) and is fit to judge (:func:`judged_mask`).
     """
-    w = steady_windows(res) if windows is None else windows
+    if windows is None:
+        idx = _memo(res, ("point_index",), lambda: _point_index(res, steady_windows(res)))
+        return idx.copy()
+    return _point_index(res, windows)
+
+
+def _point_index(res: ResultFile, w: pd.DataFrame) -> np.ndarray:
     t = res.timeseries["time"].to_numpy(dtype=np.float64)
     if not len(w):
         return np.full(t.size, -1, dtype=np.intp)
@@ -204,19 +242,51 @@ def point_index(res: ResultFile, windows: pd.DataFrame | None = None) -> np.ndar
 def _group_means(
     key: np.ndarray, n_groups: int, values: dict[str, np.ndarray | None]
 ) -> dict[str, np.ndarray]:
-    """Mean of each value over the samples of each group (finite samples only; NaN if none)."""
-    use = key >= 0
+    """Mean of each value over the samples of each group (finite samples only; NaN if none).
+
+    Time-ordered samples have their groups in contiguous runs; those are summed with
+    ``reduceat`` (no scatter), otherwise with ``bincount``.
+    """
+    sel = np.flatnonzero(key >= 0)
+    k = key[sel]
+    runs = bool(np.all(k[1:] >= k[:-1])) if k.size else False
+    start = np.flatnonzero(np.r_[True, k[1:] != k[:-1]]) if runs else np.array([], np.intp)
+    groups = k[start]
+
+    def per_group(x: np.ndarray, dtype: Any = np.float64) -> np.ndarray:
+        if runs:
+            full = np.zeros(n_groups, dtype=dtype)
+            full[groups] = np.add.reduceat(x, start, dtype=dtype)
+            return full
+        if x.dtype == bool:
+            return np.bincount(k[x], minlength=n_groups)
+        return np.bincount(k, weights=x, minlength=n_groups)
+
+    k_count = np.bincount(k, minlength=n_groups)
     out: dict[str, np.ndarray] = {}
     for name, v in values.items():
         if v is None:
             out[name] = np.full(n_groups, np.nan)
             continue
-        good = use & np.isfinite(v)
-        count = np.bincount(key[good], minlength=n_groups)
-        total = np.bincount(key[good], weights=v[good], minlength=n_groups)
+        vs = v[sel]
+        fin = np.isfinite(vs)
+        if fin.all():
+            count, total = k_count, per_group(vs)
+        else:
+            count, total = per_group(fin, np.int64), per_group(np.where(fin, vs, 0.0))
         with np.errstate(invalid="ignore", divide="ignore"):  # empty groups: NaN on purpose
             out[name] = np.where(count > 0, total / count, np.nan)
     return out
+
+
+def _run_keys(raw: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``np.unique(raw, return_inverse=True)``, without a sort when ``raw`` is already in
+    order (time-ordered samples)."""
+    if raw.size and bool(np.all(raw[1:] >= raw[:-1])):
+        new = np.r_[True, raw[1:] != raw[:-1]]
+        return raw[new], np.cumsum(new) - 1
+    uniq, key = np.unique(raw, return_inverse=True)
+    return uniq, key.ravel()
 
 
 #: Quantities averaged per steady point.
@@ -272,9 +342,13 @@ def steady_point_stats(res: ResultFile) -> pd.DataFrame:
     ``carbon_balance_error`` (fraction, :func:`carbon_balance_error`) when the fuel flows are
     there. Empty when the result has no steady points.
     """
+    return _memo(res, ("steady_point_stats",), lambda: _steady_point_stats(res)).copy()
+
+
+def _steady_point_stats(res: ResultFile) -> pd.DataFrame:
     w = steady_windows(res)
     n = len(w)
-    key = point_index(res, w)
+    key = point_index(res)
     means = _group_means(key, n, {q: series(res, q) for q in POINT_QUANTITIES})
     out = w.copy()
     out["t_mid_s"] = 0.5 * (out["start_s"] + out["end_s"])
@@ -304,8 +378,13 @@ def steady_blocks(res: ResultFile, block_s: float = BLOCK_S) -> pd.DataFrame:
     the mean of each quantity of :data:`POINT_QUANTITIES` present. Used to show the spread and
     the time trend inside points without scattering every sample.
     """
+    key = ("steady_blocks", float(block_s))
+    return _memo(res, key, lambda: _steady_blocks(res, block_s)).copy()
+
+
+def _steady_blocks(res: ResultFile, block_s: float) -> pd.DataFrame:
     w = steady_windows(res)
-    idx = point_index(res, w)
+    idx = point_index(res)
     t = res.timeseries["time"].to_numpy(dtype=np.float64)
     use = idx >= 0
     if not use.any():
@@ -313,7 +392,7 @@ def steady_blocks(res: ResultFile, block_s: float = BLOCK_S) -> pd.DataFrame:
     start = w["start_s"].to_numpy(dtype=np.float64)
     blk = np.floor((t - start[np.clip(idx, 0, None)]) / block_s).astype(np.int64)
     raw = np.where(use, idx.astype(np.int64) * (1 << 32) + blk, -1)
-    uniq, key = np.unique(raw[use], return_inverse=True)
+    uniq, key = _run_keys(raw[use])
     full_key = np.full(t.size, -1, dtype=np.intp)
     full_key[use] = key
     m = len(uniq)
@@ -331,6 +410,14 @@ def time_blocks(
 
     Returns (block mean time [s], mean, min, max) for blocks with at least one sample.
     """
+    key = ("time_blocks", name, float(block_s))
+    tm, mean, lo, hi = _memo(res, key, lambda: _time_blocks(res, name, block_s))
+    return tm.copy(), mean.copy(), lo.copy(), hi.copy()
+
+
+def _time_blocks(
+    res: ResultFile, name: str, block_s: float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     v = series(res, name)
     t = res.timeseries["time"].to_numpy(dtype=np.float64)
     use = point_index(res) >= 0
@@ -341,16 +428,22 @@ def time_blocks(
     if not use.any():
         e = np.array([])
         return e, e, e, e
-    b = np.floor(t[use] / block_s).astype(np.int64)
-    uniq, key = np.unique(b, return_inverse=True)
+    tu, vu = t[use], v[use]
+    b = np.floor(tu / block_s).astype(np.int64)
+    uniq, key = _run_keys(b)
     m = len(uniq)
     count = np.bincount(key, minlength=m)
-    tm = np.bincount(key, weights=t[use], minlength=m) / count
-    mean = np.bincount(key, weights=v[use], minlength=m) / count
-    lo = np.full(m, np.inf)
-    hi = np.full(m, -np.inf)
-    np.minimum.at(lo, key, v[use])
-    np.maximum.at(hi, key, v[use])
+    tm = np.bincount(key, weights=tu, minlength=m) / count
+    mean = np.bincount(key, weights=vu, minlength=m) / count
+    if m and key[-1] == m - 1 and bool(np.all(key[1:] >= key[:-1])):
+        start = np.flatnonzero(np.r_[True, key[1:] != key[:-1]])
+        lo = np.minimum.reduceat(vu, start)
+        hi = np.maximum.reduceat(vu, start)
+    else:
+        lo = np.full(m, np.inf)
+        hi = np.full(m, -np.inf)
+        np.minimum.at(lo, key, vu)
+        np.maximum.at(hi, key, vu)
     return tm, mean, lo, hi
 
 

@@ -20,11 +20,11 @@ from matplotlib.patches import Patch
 from ..result import ResultFile
 from . import reportdata as rd
 from .plots import (
-    BINS_PER_PIXEL,
     DPI,
     WIDTH_IN,
     FigureSkipped,
     envelope,
+    envelope_bins,
     format_time_axis,
     night_x,
     report_figure,
@@ -91,14 +91,19 @@ def plot_residuals(res: ResultFile, out_png: Path) -> Path:
         + ("solid: drift baseline, dashed: \u00b1 minimum detectable drift"
            if drift is not None else "no /drift/ table in this result: residuals only")
     )
-    n_bins = max(1, int(BINS_PER_PIXEL * WIDTH_IN * DPI / ncols))
+    width_px = WIDTH_IN * DPI / ncols
     with report_figure(res, "Lambda residual trends", 1.2 + 1.9 * rows, caption) as body:
         axes = np.atleast_1d(body.subplots(rows, ncols, sharex=True, squeeze=False)).ravel()
         for ax in axes[len(names):]:
             ax.remove()
         for ax, name in zip(axes, names, strict=False):
             v = 100.0 * res.timeseries[name].to_numpy(dtype=np.float64)
-            ex, ey = envelope(x, np.where(use, v, np.nan), n_bins)
+            # envelope over the stretch with steady samples (the part the panel shows)
+            vm = np.where(use, v, np.nan)
+            fin = np.flatnonzero(np.isfinite(vm))
+            span = slice(fin[0], fin[-1] + 1) if fin.size else slice(0, 0)
+            n_span = int(np.isfinite(x[span]).sum())
+            ex, ey = envelope(x[span], vm[span], envelope_bins(n_span, width_px))
             ax.plot(ex, ey, color=TRACE, linewidth=0.5, alpha=0.35, zorder=1)
             tb, mean, _, _ = rd.time_blocks(res, name)
             ax.plot(conv(tb), 100.0 * mean, linestyle="none", marker="o", markersize=2.6,

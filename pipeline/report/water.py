@@ -24,6 +24,7 @@ from .plots import (
     FigureSkipped,
     bin_mean,
     envelope,
+    envelope_bins,
     format_time_axis,
     night_x,
     report_figure,
@@ -68,7 +69,7 @@ def water_data(res: ResultFile) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
 
 def _trace(ax, x, v, n_bins, color, ls):  # noqa: ANN001, ANN202 - local drawing helper
-    ex, ey = envelope(x, v, n_bins)
+    ex, ey = envelope(x, v, min(n_bins, envelope_bins(x.size, WIDTH_IN * DPI)))
     ax.plot(ex, ey, color=color, linewidth=0.5, alpha=0.35)
     mx, my = bin_mean(x, v, min(n_bins, max(1, v.size // 2)))
     ax.plot(mx, my, color=color, linestyle=ls, linewidth=1.4)
