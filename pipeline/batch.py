@@ -110,12 +110,19 @@ def process_night(
     force: bool = False,
     debug: bool = False,
     progress: Callable[[str], None] | None = None,
+    figure_processes: int | None = None,
 ) -> NightReport:
     """Process one night into ``out_dir``; never raises (the report carries the failure).
 
     A top-level function so that process pools (fork, spawn or forkserver) and Dask workers
-    can run it. ``progress`` (in-process use only) receives the stage names.
+    can run it. ``progress`` (in-process use only) receives the stage names;
+    ``figure_processes`` sets :data:`pipeline.report.render.FIGURE_PROCESSES` of the
+    process it runs in (1 in pool and cluster workers, whose CPUs are shared out already).
     """
+    if figure_processes is not None:
+        from .report import render
+
+        render.FIGURE_PROCESSES = figure_processes
     from . import __version__
     from .api import process_to_files, run_stem
     from .config import load_config
@@ -262,7 +269,9 @@ def run_batch(
     own = executor is None
     ex = executor if executor is not None else make_executor(jobs, scheduler)
     try:
-        futures: dict[Future[NightReport], str] = {ex.submit(process_night, *a): a[0] for a in args}
+        futures: dict[Future[NightReport], str] = {
+            ex.submit(process_night, *a, figure_processes=1): a[0] for a in args
+        }
         for fut in as_completed(futures):
             try:
                 yield fut.result()

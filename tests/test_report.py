@@ -386,3 +386,55 @@ def test_pdf_falls_back_to_an_embedded_font_outside_windows_1252(tmp_path: Path)
     pdf = write_pdf(s, tmp_path / "b.pdf").read_bytes()
     assert _embedded(pdf)
     assert b"Helvetica" not in b"".join(_page_fonts(pdf))
+
+
+# ---------------------------------------------------------------------------------------
+# figures drawn in two processes
+# ---------------------------------------------------------------------------------------
+@pytest.mark.skipif(not hasattr(__import__("os"), "fork"), reason="needs os.fork (POSIX)")
+def test_two_processes_draw_the_same_figures(
+    night: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from pipeline.report import render
+
+    res = read_result(night)
+    for d in ("one", "two"):
+        (tmp_path / d).mkdir()
+    monkeypatch.setattr(render, "FIGURE_PROCESSES", 1)
+    one, skipped_one = render.render_figures(res, tmp_path / "one", "n")
+    monkeypatch.setattr(render, "FIGURE_PROCESSES", 2)
+    two, skipped_two = render.render_figures(read_result(night), tmp_path / "two", "n")
+    assert [p.name for p in one] == [p.name for p in two] and len(one) == 7
+    assert skipped_one == skipped_two
+    for a, b in zip(one, two, strict=True):
+        assert a.read_bytes() == b.read_bytes(), a.name  # byte for byte
+    assert not list((tmp_path / "two").glob("*.tmp"))
+
+
+@pytest.mark.skipif(not hasattr(__import__("os"), "fork"), reason="needs os.fork (POSIX)")
+def test_second_process_failures_are_reported_or_redrawn(
+    night: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from pipeline.report import emissions, render
+
+    for d in ("a", "b"):
+        (tmp_path / d).mkdir()
+    monkeypatch.setattr(render, "FIGURE_PROCESSES", 2)
+    # a figure failing in the child: a skip with its reason and a warning here
+    def broken(*_args: object) -> list[Path]:
+        raise RuntimeError("boom")
+
+    monkeypatch.setattr(emissions, "figure", broken)
+    with pytest.warns(RuntimeWarning, match="boom"):
+        paths, skipped = render.render_figures(read_result(night), tmp_path / "a", "n")
+    assert "internal error: boom" in skipped[emissions.NAME] and len(paths) == 6
+    monkeypatch.undo()
+    # a child that dies without an outcome: its figures are drawn here
+    monkeypatch.setattr(render, "FIGURE_PROCESSES", 2)
+    class Dead:
+        def wait(self) -> None:
+            return None
+
+    monkeypatch.setattr(render, "_draw_in_child", lambda *a: Dead())
+    paths, skipped = render.render_figures(read_result(night), tmp_path / "b", "n")
+    assert len(paths) == 7 and skipped == {}
