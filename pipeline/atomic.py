@@ -7,10 +7,49 @@ is replaced only by a complete new one (``os.replace`` is atomic within one file
 from __future__ import annotations
 
 import os
+import signal
 import tempfile
+import threading
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
+from typing import Any
+
+#: Set once the user asked to stop (Ctrl-C under :func:`stop_on_interrupt`). Python delivers
+#: KeyboardInterrupt at any bytecode, also inside a weakref callback or ``__del__``, where it
+#: is printed and lost; this flag is not lost, and :func:`atomic_path` checks it before it
+#: renames a file into place, so an interrupted run never commits a result.
+_interrupted = threading.Event()
+
+
+def interrupt_requested() -> bool:
+    """True once Ctrl-C was pressed under :func:`stop_on_interrupt`."""
+    return _interrupted.is_set()
+
+
+@contextmanager
+def stop_on_interrupt() -> Iterator[None]:
+    """Within the block, Ctrl-C (SIGINT) both raises KeyboardInterrupt and sets the flag of
+    :func:`interrupt_requested`; at the end of the block a set flag raises KeyboardInterrupt
+    (an interrupt lost on its way up still stops the run). The flag is cleared on entry and
+    exit. Main thread only; elsewhere a no-op."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def handler(signum: int, frame: Any) -> None:
+        _interrupted.set()
+        raise KeyboardInterrupt
+
+    _interrupted.clear()
+    previous = signal.signal(signal.SIGINT, handler)
+    try:
+        yield
+        if _interrupted.is_set():
+            raise KeyboardInterrupt
+    finally:
+        signal.signal(signal.SIGINT, previous)
+        _interrupted.clear()
 
 
 def _umask() -> int:
@@ -34,6 +73,8 @@ def atomic_path(path: str | Path) -> Iterator[Path]:
     try:
         os.chmod(tmp, 0o666 & ~_umask())
         yield tmp
+        if _interrupted.is_set():  # an interrupt that was swallowed on its way up
+            raise KeyboardInterrupt
         os.replace(tmp, final)
     except BaseException:
         tmp.unlink(missing_ok=True)

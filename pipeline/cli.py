@@ -17,6 +17,7 @@ from typing import Any
 import click
 
 from . import __version__
+from .atomic import stop_on_interrupt
 from .errors import DynoqcError
 
 EXIT_OK, EXIT_INTERNAL, EXIT_CONFIG, EXIT_DATA = 0, 1, 2, 3
@@ -30,7 +31,8 @@ def _fail(message: str, code: int) -> None:
 def _guarded(debug: bool, fn: Callable[[], Any]) -> Any:
     """Run ``fn``; turn known errors into a message and exit code, no traceback unless debug."""
     try:
-        return fn()
+        with stop_on_interrupt():
+            return fn()
     except DynoqcError as exc:
         if debug:
             traceback.print_exc()
@@ -98,7 +100,7 @@ def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: b
 
     batch = run_batch(paths, config_path, out_dir, plots=not no_plots, force=force,
                       jobs=jobs, scheduler=scheduler, debug=debug)
-    try:
+    def run_all() -> None:
         if len(paths) == 1 and not no_progress and sys.stderr.isatty():
             consume(_single_night_with_progress(paths[0], config_path, out_dir, not no_plots,
                                                 force, debug))
@@ -111,6 +113,10 @@ def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: b
                 consume(ticking())
         else:
             consume(batch)
+
+    try:
+        with stop_on_interrupt():  # also a Ctrl-C that Python lost on its way up
+            run_all()
     except KeyboardInterrupt:
         _fail("interrupted; no partial result was left behind.", 130)
     except DynoqcError as exc:

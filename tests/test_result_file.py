@@ -434,3 +434,29 @@ def test_stored_series_are_the_values_in_the_file(tmp_path: Path) -> None:
     for name in mem:
         np.testing.assert_array_equal(mem[name], disk[name])
     assert np.isnan(mem["lambda_flow"][[5, 7]]).all() and np.isinf(x[5])  # input unchanged
+
+
+def test_an_interrupt_lost_on_its_way_up_commits_nothing(tmp_path: Path) -> None:
+    # Python prints and drops a KeyboardInterrupt raised inside a weakref callback or
+    # __del__; under stop_on_interrupt the request is remembered and no file is renamed into
+    # place afterwards, and the block still ends with KeyboardInterrupt.
+    import os
+    import signal
+    import time
+
+    from pipeline.atomic import atomic_path, interrupt_requested, stop_on_interrupt
+
+    with pytest.raises(KeyboardInterrupt), stop_on_interrupt():
+        try:
+            os.kill(os.getpid(), signal.SIGINT)
+            time.sleep(0.5)
+        except KeyboardInterrupt:
+            pass  # swallowed, as in a weakref callback
+        assert interrupt_requested()
+        with pytest.raises(KeyboardInterrupt), atomic_path(tmp_path / "r.h5") as tmp:
+            tmp.write_text("complete, but the user asked to stop")
+        assert list(tmp_path.iterdir()) == []
+    assert not interrupt_requested()  # cleared on leaving the block
+    with atomic_path(tmp_path / "r.h5") as tmp:
+        tmp.write_text("ok")
+    assert (tmp_path / "r.h5").read_text() == "ok"

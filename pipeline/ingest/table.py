@@ -209,8 +209,8 @@ class _Column:
         self.values = values
         self.n_missing = int(na.sum())
         self.n_bad = int(bad.sum())
-        self.bad_example = str(raw[bad].iloc[0]) if self.n_bad else ""
-        self.examples = [str(v) for v in raw[~na].head(3)]
+        self.bad_example = str(raw.iloc[int(np.argmax(bad))]) if self.n_bad else ""
+        self.examples = [str(v) for v in raw.iloc[np.flatnonzero(~na)[:3]]]
 
 
 def _localize(ts: pd.Series, tz: str | None, where: str, meta: RunMeta) -> pd.Series:
