@@ -111,23 +111,38 @@ def comment_rows(path: Path) -> int:
     return n
 
 
+#: Runs a command and reports its wall time and peak memory (argv: the command). A small
+#: process of its own starts the measured one: the peak resident set of a child includes
+#: what it shared with its parent at fork time, so starting it from this (large) benchmark
+#: process would count the benchmark's own memory.
+LAUNCHER = r"""
+import json, os, subprocess, sys, time
+t = time.perf_counter()
+proc = subprocess.Popen(sys.argv[1:], stdout=subprocess.DEVNULL)
+_, status, usage = os.wait4(proc.pid, 0)
+wall = time.perf_counter() - t
+print(json.dumps({"wall": wall, "maxrss_kb": usage.ru_maxrss,
+                  "rc": os.waitstatus_to_exitcode(status)}))
+"""
+
+
 def run_child(cmd: Sequence[str]) -> tuple[float, float]:
     """Run ``cmd``; return (wall seconds, peak RSS in MB of it and its children).
 
-    ``os.wait4`` gives the resource use of this one child (``ru_maxrss`` includes the
-    children it waited for, e.g. the ``--jobs`` workers).
+    Timed and measured by :data:`LAUNCHER` in a small process of its own; ``os.wait4`` gives
+    the resource use of the one child (``ru_maxrss`` is the largest of it and the children
+    it waited for, e.g. the ``--jobs`` workers or the process drawing half of the figures).
     """
-    t = time.perf_counter()
-    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-    assert proc.stderr is not None
-    err = proc.stderr.read()
-    _, status, usage = os.wait4(proc.pid, 0)
-    wall = time.perf_counter() - t
-    proc.returncode = os.waitstatus_to_exitcode(status)
-    if proc.returncode != 0:
-        sys.stderr.write(err.decode(errors="replace"))
-        raise SystemExit(f"failed ({proc.returncode}): {' '.join(map(str, cmd))}")
-    return wall, usage.ru_maxrss / 1024.0  # Linux: KiB
+    proc = subprocess.run([sys.executable, "-c", LAUNCHER, *map(str, cmd)],
+                          capture_output=True, text=True, check=False)
+    try:
+        out = json.loads(proc.stdout.strip().splitlines()[-1])
+    except (IndexError, json.JSONDecodeError):
+        out = {"rc": proc.returncode}
+    if out.get("rc") != 0 or proc.returncode != 0:
+        sys.stderr.write(proc.stderr)
+        raise SystemExit(f"failed ({out.get('rc')}): {' '.join(map(str, cmd))}")
+    return out["wall"], out["maxrss_kb"] / 1024.0  # Linux: KiB
 
 
 def dynoqc_cmd(runs: Sequence[Path], out: Path, *, plots: bool, jobs: int = 1) -> list[str]:
