@@ -207,7 +207,9 @@ def _limit_threads(threads: int) -> None:
     import pyarrow
 
     from .report import hdf5
+    from .runtime import tune_allocator
 
+    tune_allocator()
     pyarrow.set_cpu_count(threads)
     hdf5.WRITE_THREADS = threads
 

@@ -81,6 +81,9 @@ def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: b
     figures and a summary; with several nights also OUT/dynoqc_index.csv and .json."""
     from .batch import expand_inputs, run_batch, write_index
     from .config import load_config
+    from .runtime import tune_allocator
+
+    tune_allocator()
 
     paths = _guarded(debug, lambda: expand_inputs(runs))
     _guarded(debug, lambda: load_config(config_path))  # a bad config stops before any night
@@ -188,7 +191,9 @@ def inspect(run: Path, config_path: Path | None, as_json: bool, write_path: Path
 def report(result: Path, out_dir: Path | None, no_plots: bool, debug: bool) -> None:
     """Re-render the figures and summary of an existing RESULT file (.h5)."""
     from .report import render_report
+    from .runtime import tune_allocator
 
+    tune_allocator()
     target = out_dir if out_dir is not None else result.parent
     for path in _guarded(debug, lambda: render_report(result, target, plots=not no_plots)):
         click.echo(str(path))
