@@ -29,10 +29,9 @@ def columns_frame(columns: Mapping[str, Any]) -> pd.DataFrame:
     are not plain 1-D NumPy arrays, or an older pandas, take the ordinary constructor.
     """
     arrays = [np.asarray(v) if isinstance(v, np.ndarray | list) else v for v in columns.values()]
-    try:
-        from pandas.api.internals import create_dataframe_from_blocks
-    except ImportError:  # pandas < 3.0
+    if int(pd.__version__.split(".")[0]) < 3:  # no block API, and no copy-on-write by default
         return pd.DataFrame(dict(columns))
+    from pandas.api.internals import create_dataframe_from_blocks
     lengths = {len(a) for a in arrays if hasattr(a, "__len__")}
     plain = all(
         isinstance(a, np.ndarray) and a.ndim == 1 and a.dtype.kind in "biuf" for a in arrays
