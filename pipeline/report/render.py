@@ -10,6 +10,7 @@ figure is listed with its reason in the summary, never drawn as an empty axes.
 from __future__ import annotations
 
 import os
+import sys
 import warnings
 from collections.abc import Mapping, Sequence
 from importlib import import_module
@@ -29,9 +30,10 @@ FIGURE_MODULES = (
 )
 
 
-#: Processes that draw the figures of one night: None = two where this process may run on
-#: two or more CPUs and can fork (POSIX), else one. ``--jobs``/``--scheduler`` workers use
-#: one (their CPUs are shared out between nights already).
+#: Processes that draw the figures of one night: None = two on Linux where this process may
+#: run on two or more CPUs, else one (macOS and Windows: forking a process that has loaded
+#: system frameworks or has no fork at all is not safe there). ``--jobs``/``--scheduler``
+#: workers use one (their CPUs are shared out between nights already).
 FIGURE_PROCESSES: int | None = None
 
 #: The figures a second process draws (about half of the drawing time; the rest are drawn
@@ -43,7 +45,7 @@ def figure_processes() -> int:
     """Processes :func:`render_figures` will use (see :data:`FIGURE_PROCESSES`)."""
     if FIGURE_PROCESSES is not None:
         return max(1, int(FIGURE_PROCESSES))
-    if not hasattr(os, "fork"):
+    if not sys.platform.startswith("linux") or not hasattr(os, "fork"):
         return 1
     cpus = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
     return 2 if (cpus or 1) >= 2 else 1
