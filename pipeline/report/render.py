@@ -157,9 +157,13 @@ def render_figures(res: object, out_dir: Path, stem: str) -> tuple[list[Path], d
     if figure_processes() >= 2 and second and first:
         from . import reportdata as rd
 
-        # Data several figures share, computed once before the fork so both processes have it.
-        rd.steady_point_stats(res)
-        rd.steady_blocks(res)
+        # Data several figures share, computed once before the fork so both processes have it
+        # (a result that lacks them is met again, and reported, by the figures themselves).
+        try:
+            rd.steady_point_stats(res)
+            rd.steady_blocks(res)
+        except Exception:  # noqa: BLE001
+            pass
         child = _draw_in_child(second, res, out_dir, stem)
         try:
             written, skipped, notes = _draw(first, res, out_dir, stem)
