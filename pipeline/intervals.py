@@ -1,4 +1,5 @@
-"""Boolean masks over a time base <-> lists of intervals (vectorised)."""
+"""Boolean masks over a time base <-> lists of intervals, and statistics per group of
+samples (vectorised)."""
 
 from __future__ import annotations
 
@@ -99,3 +100,20 @@ def gap_flags(
                 }
             )
     return rows
+
+
+def group_mean_std(
+    group: np.ndarray, use: np.ndarray, values: np.ndarray, k: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Mean and sample standard deviation (ddof 1) of ``values[use]`` per group id 0..k-1,
+    two-pass (deviations from the group mean, so long steady points lose no precision); NaN
+    for a group with no sample (mean) or fewer than two (std)."""
+    g = group[use]
+    x = values[use]
+    count = np.bincount(g, minlength=k).astype(float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.bincount(g, weights=x, minlength=k) / count
+        ss = np.bincount(g, weights=(x - mean[g]) ** 2, minlength=k)
+        std = np.sqrt(ss / (count - 1.0))
+    std[count < 2] = np.nan
+    return mean, std

@@ -29,3 +29,25 @@ def test_gap_flags_group_channels_and_time_holes():
     assert first["suspect"] == "co2|o2"
     assert (first["start_s"], first["end_s"]) == (9.0, 15.0)
     assert hole["suspect"] == "time" and hole["value"] == 31.0
+
+
+def test_group_mean_std_equals_pandas_groupby() -> None:
+    # Reference: pandas GroupBy.mean / GroupBy.std (ddof 1, NaN skipped), groups unsorted,
+    # samples outside every group (-1), a group of one sample (std NaN) and an empty group.
+    import pandas as pd
+
+    from pipeline.intervals import group_mean_std
+
+    rng = np.random.default_rng(11)
+    n, k = 5000, 6
+    group = rng.integers(-1, k - 2, n)
+    group[17] = k - 2  # one sample only; group k - 1 stays empty
+    x = 1e4 + rng.normal(size=n)  # large offset: a one-pass formula would lose digits
+    x[rng.random(n) < 0.1] = np.nan
+    mean, std = group_mean_std(group, (group >= 0) & np.isfinite(x), x, k)
+    ref = pd.DataFrame({"g": group, "x": x})[group >= 0].groupby("g")["x"]
+    want_mean = ref.mean().reindex(range(k)).to_numpy()
+    want_std = ref.std().reindex(range(k)).to_numpy()
+    np.testing.assert_allclose(mean, want_mean, rtol=1e-12, equal_nan=True)
+    np.testing.assert_allclose(std, want_std, rtol=1e-9, equal_nan=True)
+    assert np.isnan(std[k - 2]) and np.isnan(mean[k - 1])

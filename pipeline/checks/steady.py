@@ -14,6 +14,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from ..intervals import group_mean_std
 from .intervals import mask_runs, median_step
 
 #: Quantity -> settings key of its relative standard-deviation limit.
@@ -110,24 +111,7 @@ def steady_points_table(
         return out
     k = len(runs)
     for name, values in columns.items():
-        out[f"{name}_mean"], out[f"{name}_std"] = _group_mean_std(
+        out[f"{name}_mean"], out[f"{name}_std"] = group_mean_std(
             pid, sel & np.isfinite(values), np.asarray(values, dtype=float), k
         )
     return out
-
-
-def _group_mean_std(
-    group: np.ndarray, use: np.ndarray, values: np.ndarray, k: int
-) -> tuple[np.ndarray, np.ndarray]:
-    """Mean and sample standard deviation (ddof 1) of ``values[use]`` per group id 0..k-1,
-    two-pass (deviations from the group mean, so long steady points lose no precision); NaN
-    for a group with no sample (mean) or fewer than two (std)."""
-    g = group[use]
-    x = values[use]
-    count = np.bincount(g, minlength=k).astype(float)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean = np.bincount(g, weights=x, minlength=k) / count
-        ss = np.bincount(g, weights=(x - mean[g]) ** 2, minlength=k)
-        std = np.sqrt(ss / (count - 1.0))
-    std[count < 2] = np.nan
-    return mean, std

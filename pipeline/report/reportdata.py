@@ -22,6 +22,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ..intervals import group_mean_std
 from ..result import ResultFile
 
 #: Default consistency tolerance (fraction) when the result carries no checks settings:
@@ -242,40 +243,15 @@ def _point_index(res: ResultFile, w: pd.DataFrame) -> np.ndarray:
 def _group_means(
     key: np.ndarray, n_groups: int, values: dict[str, np.ndarray | None]
 ) -> dict[str, np.ndarray]:
-    """Mean of each value over the samples of each group (finite samples only; NaN if none).
-
-    Time-ordered samples have their groups in contiguous runs; those are summed with
-    ``reduceat`` (no scatter), otherwise with ``bincount``.
-    """
-    sel = np.flatnonzero(key >= 0)
-    k = key[sel]
-    runs = bool(np.all(k[1:] >= k[:-1])) if k.size else False
-    start = np.flatnonzero(np.r_[True, k[1:] != k[:-1]]) if runs else np.array([], np.intp)
-    groups = k[start]
-
-    def per_group(x: np.ndarray, dtype: Any = np.float64) -> np.ndarray:
-        if runs:
-            full = np.zeros(n_groups, dtype=dtype)
-            full[groups] = np.add.reduceat(x, start, dtype=dtype)
-            return full
-        if x.dtype == bool:
-            return np.bincount(k[x], minlength=n_groups)
-        return np.bincount(k, weights=x, minlength=n_groups)
-
-    k_count = np.bincount(k, minlength=n_groups)
+    """Mean of each value over the samples of each group ``key`` 0..n_groups-1 (key -1: no
+    group; finite samples only; NaN for a group without any)."""
     out: dict[str, np.ndarray] = {}
     for name, v in values.items():
         if v is None:
             out[name] = np.full(n_groups, np.nan)
             continue
-        vs = v[sel]
-        fin = np.isfinite(vs)
-        if fin.all():
-            count, total = k_count, per_group(vs)
-        else:
-            count, total = per_group(fin, np.int64), per_group(np.where(fin, vs, 0.0))
-        with np.errstate(invalid="ignore", divide="ignore"):  # empty groups: NaN on purpose
-            out[name] = np.where(count > 0, total / count, np.nan)
+        x = np.asarray(v, dtype=np.float64)
+        out[name] = group_mean_std(key, (key >= 0) & np.isfinite(x), x, n_groups)[0]
     return out
 
 
