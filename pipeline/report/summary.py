@@ -233,14 +233,21 @@ class _Page:
         self.left = 0.6
         self.width = A4_IN[0] - 2 * self.left
 
+    def _baseline(self, size: float) -> float:
+        """Baseline of a line whose top is at the cursor, as a fraction of the page height.
+        Lines are placed by their baseline, not by the top of their ink, so lines with and
+        without tall glyphs keep the same spacing (in every font)."""
+        return (self.y + 0.8 * size / 72) / A4_IN[1]
+
     def text(self, s: str, size: float = 8.5, weight: str = "normal", indent: float = 0.0,
              color: str = "#111111", gap: float = 0.04, style: str = "normal") -> None:
         chars = max(20, int((self.width - indent) * 72 / (size * 0.55)))
         for line in textwrap.wrap(s, chars) or [""]:
             if self.y > A4_IN[1] - 0.45:
                 return
-            self.fig.text((self.left + indent) / A4_IN[0], 1 - self.y / A4_IN[1], line,
-                          fontsize=size, weight=weight, color=color, va="top", style=style)
+            self.fig.text((self.left + indent) / A4_IN[0], 1 - self._baseline(size), line,
+                          fontsize=size, weight=weight, color=color, va="baseline",
+                          style=style)
             self.y += size * 1.32 / 72
         self.y += gap
 
@@ -257,8 +264,8 @@ class _Page:
             for xi, cell, w in zip(xs, row, widths, strict=True):
                 chars = max(4, int(w * 72 / (size * 0.55)))
                 cell = cell if len(cell) <= chars else cell[: chars - 1] + "\u2026"
-                self.fig.text(xi / A4_IN[0], 1 - self.y / A4_IN[1], cell, fontsize=size,
-                              weight="bold" if r == 0 else "normal", va="top")
+                self.fig.text(xi / A4_IN[0], 1 - self._baseline(size), cell, fontsize=size,
+                              weight="bold" if r == 0 else "normal", va="baseline")
             self.y += size * 1.4 / 72
         self.y += 0.06
 
