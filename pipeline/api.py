@@ -18,20 +18,15 @@ import numpy as np
 import pandas as pd
 
 from . import __version__
-from .balance import compute_balance
-from .balance.driftcor import apply_drift_correction
+from .align import Alignment, align
+from .balance import BalanceResult, DriftCorrected, compute_balance, drift_corrected
 from .balance.tables import emissions_table
-from .checks import instrument_verdicts, run_checks
-from .checks.alignment import align_analyzers
-from .checks.intervals import make_clock
+from .checks import CheckSettings, ChecksResult, run_checks
+from .checks.verdicts import console_lines
 from .config import Config, load_config
-from .data import FLAG_COLUMNS, ProcessResult, RunData, columns_frame, make_flags
+from .data import ProcessResult, RunData, columns_frame
 from .ingest import read_run
-from .intervals import gap_flags
 from .quantities import DERIVED, GASES, INPUTS
-
-#: Flag checks that make an instrument's verdict (others, e.g. data_gap, are only listed).
-VERDICT_CHECKS = ("drift", "lambda_disagreement", "out_of_range", "condensation_risk")
 
 
 def run_stem(path: Path) -> str:
@@ -67,53 +62,20 @@ def _series_attrs(config: Config, run: RunData) -> dict[str, dict[str, Any]]:
     return attrs
 
 
-def _sorted_flags(parts: list[pd.DataFrame]) -> pd.DataFrame:
-    parts = [p for p in parts if len(p)]
-    if not parts:
-        return make_flags([])
-    flags = pd.concat(parts, ignore_index=True)[list(FLAG_COLUMNS)]
-    return flags.sort_values(["start_s", "check"], kind="stable").reset_index(drop=True)
-
-
-def _verdict_lines(verdicts: list[tuple[str, str]]) -> list[str]:
-    """One console line per instrument: its canonical name and the verdict."""
-    width = max((len(name) for name, _ in verdicts), default=0)
-    return [f"{name:<{width}}  {verdict}" for name, verdict in verdicts]
-
-
-def _emission_results(
-    frame: pd.DataFrame,
-    cfg: Config,
-    series: pd.DataFrame,
-    tables: dict[str, pd.DataFrame],
-    delay_s: float,
-) -> list[str]:
-    """Add the ``emissions`` table (per steady point and night) and, when zero/span
-    references are configured, the 40 CFR 1065.672 drift-corrected series and the
-    ``drift_correction`` table; return notes for the console. ``series`` and ``tables`` are
-    extended in place."""
-    # Drift correction: correct the analyzer readings, recompute, compare (1065.550).
-    corrected_frame, readings, notes = apply_drift_correction(frame, cfg)
-    corrected = None
-    if corrected_frame is not None:
-        corrected = compute_balance(corrected_frame, cfg, analyzer_delay_s=delay_s).derived
-        tables["drift_correction"] = readings
-        for g in cfg.drift_correction.gases:
-            series[f"{g}_driftcor"] = corrected_frame[g].to_numpy()
-        for name in ("co2_mass_flow", "co_mass_flow", "nox_mass_flow", "thc_mass_flow"):
-            if name in corrected:
-                series[f"{name}_driftcor"] = corrected[name].to_numpy()
-    steady = tables.get("steady_points")
-    intervals = (
-        [(f"SP{i + 1:02d}", float(a), float(b))
-         for i, (a, b) in enumerate(zip(steady["start_s"], steady["end_s"], strict=True))]
-        if steady is not None and len(steady) else []
+def _emissions(
+    series: pd.DataFrame, steady: pd.DataFrame, cfg: Config, corrected: DriftCorrected | None
+) -> pd.DataFrame | None:
+    """The ``emissions`` table per steady point and for the night (1065.650 / 1065.672)."""
+    if "co2_mass_flow" not in series and "nox_mass_flow" not in series:
+        return None
+    intervals = [
+        (f"SP{i + 1:02d}", float(a), float(b))
+        for i, (a, b) in enumerate(zip(steady["start_s"], steady["end_s"], strict=True))
+    ]
+    return emissions_table(
+        series, intervals, cfg.fuel, cfg.verification,
+        corrected.derived if corrected is not None else None,
     )
-    if "co2_mass_flow" in series or "nox_mass_flow" in series:
-        tables["emissions"] = emissions_table(
-            series, intervals, cfg.fuel, cfg.verification, corrected
-        )
-    return notes
 
 
 def _provenance(cfg: Config, run: RunData, notes: list[str]) -> dict[str, Any]:
@@ -181,42 +143,44 @@ def process_run(
 
     ``progress`` is called with each stage name of :data:`STAGES` as it starts.
     """
-    run_path = Path(run_path)
     cfg = config if isinstance(config, Config) else load_config(config)
-
+    settings = CheckSettings.from_config(cfg)
     progress("reading")
-    run = read_run(run_path, cfg)  # ingest
+    run = read_run(Path(run_path), cfg)
     progress("aligning")
-    gas_columns = [g for g in GASES if g in run.frame]
-    settings = dict(cfg.checks)
-    frame, alignment = align_analyzers(
-        run.frame, gas_columns, settings, cfg.sampling.analyzer_delay_s
-    )
-    delay = float(alignment.get("analyzer_delay_s", 0.0))
+    frame, alignment = align(run.frame, settings)
     progress("balance")
-    bal = compute_balance(frame, cfg, analyzer_delay_s=delay)  # balance
+    bal = compute_balance(frame, cfg, analyzer_delay_s=alignment.delay_s)
+    corrected = drift_corrected(frame, cfg, analyzer_delay_s=alignment.delay_s)
     progress("checks")
-    checked = run_checks(  # checks
-        frame,
-        bal.derived,
-        {**settings, "ranges": {n: c.range for n, c in cfg.channels.items() if c.range}},
-        has_sensor="lambda_sensor" in frame,
-        start_time=run.meta.start_time,
-    )
-
-    # Gaps are found in the data as logged (before the analyzer shift), so a dropout of the
-    # whole logger is one flag and the shifted tail is not mistaken for one.
-    logged = run.frame
-    essential = [c for c in ("fuel_mass_flow", "air_mass_flow", *gas_columns) if c in logged]
-    gaps = make_flags(
-        gap_flags(logged["time"].to_numpy(), {c: logged[c].to_numpy() for c in essential})
+    checked = run_checks(
+        frame, bal.derived, settings, has_sensor="lambda_sensor" in frame,
+        start_time=run.meta.start_time, logged=run.frame, sampling_state=bal.sampling_state,
     )
     progress("results")
-    series = _join_columns(frame, bal.derived, checked.series)
-    tables = dict(checked.tables)
-    notes = run.meta.warnings + bal.warnings
-    notes += _emission_results(frame, cfg, series, tables, delay)  # derived results, 1065.672
+    return _assemble(cfg, run, frame, alignment, bal, corrected, checked)
 
+
+def _assemble(
+    cfg: Config,
+    run: RunData,
+    frame: pd.DataFrame,
+    alignment: Alignment,
+    bal: BalanceResult,
+    corrected: DriftCorrected | None,
+    checked: ChecksResult,
+) -> ProcessResult:
+    """The stages' outputs as one result: series side by side with their attributes, the
+    tables, provenance and the console lines of the verdicts."""
+    series = _join_columns(
+        frame, bal.derived, checked.series, corrected.series if corrected else {}
+    )
+    tables = dict(checked.tables)
+    if corrected is not None:
+        tables["drift_correction"] = corrected.readings
+    emissions = _emissions(series, checked.tables["steady_points"], cfg, corrected)
+    if emissions is not None:
+        tables["emissions"] = emissions
     series_attrs = _series_attrs(cfg, run)
     series_attrs.update(checked.series_attrs)
     for name in series.columns:
@@ -227,28 +191,21 @@ def process_run(
                 "long_name": f"{series_attrs[base]['long_name']}, drift-corrected "
                 "(40 CFR 1065.672)",
             }
-    flags = _sorted_flags([bal.flags, gaps, checked.flags])
-    # Verdicts over every instrument check (the checks stage's and the balance's, e.g. the
-    # sample line's condensation risk); data gaps are listed as flags, not verdicts.
-    verdicts = instrument_verdicts(
-        flags[flags["check"].isin(VERDICT_CHECKS)],
-        [name for name, _ in checked.verdicts],
-        make_clock(run.meta.start_time),
-    )
+    notes = run.meta.warnings + bal.warnings + (corrected.notes if corrected else [])
     attrs = _provenance(cfg, run, notes)
     attrs.update(
         balance=dict(bal.attrs),
         checks_settings=dict(checked.attrs),
-        instrument_verdicts=dict(verdicts),
+        instrument_verdicts={v.instrument: v.line for v in checked.verdicts},
     )
     return ProcessResult(
         series=series,
         series_attrs=series_attrs,
-        flags=flags,
+        flags=checked.flags,
         tables=tables,
-        group_attrs={"alignment": alignment},
+        group_attrs={"alignment": alignment.attrs},
         attrs=attrs,
-        summary=_verdict_lines(verdicts),
+        summary=console_lines(checked.verdicts),
     )
 
 

@@ -56,3 +56,7 @@ R_GAS = 8.314472
 
 #: Standard atmosphere, kPa.
 P_STD_KPA = 101.325
+
+#: Scale factor from the median absolute deviation to the standard deviation of a normal
+#: sample, 1 / Phi^-1(3/4) = 1.4826 (Rousseeuw & Croux 1993, J. Am. Stat. Assoc. 88:1273).
+MAD_TO_SIGMA = 1.4826

@@ -5,8 +5,8 @@ ingest -> :class:`RunData` -> balance -> checks -> :class:`ProcessResult` -> rep
 
 from __future__ import annotations
 
-from collections.abc import Mapping
-from dataclasses import dataclass, field
+from collections.abc import Mapping, Sequence
+from dataclasses import asdict, dataclass, field
 from datetime import datetime
 from pathlib import Path
 from typing import Any
@@ -68,11 +68,31 @@ def empty_flags() -> pd.DataFrame:
     )
 
 
-def make_flags(rows: list[dict[str, Any]]) -> pd.DataFrame:
-    """A flags table from a list of row dicts (missing suspect -> "", value -> NaN)."""
+@dataclass(frozen=True)
+class Flag:
+    """One row of the flags table (DESIGN.md result-file contract).
+
+    start_s, end_s: the interval [s since start]; check: the check that raised it; suspect:
+    the instrument(s) blamed, ``|``-separated ("" for none, "time" for the logger clock);
+    severity: ``info`` | ``warning`` | ``error``; value: the check's number (its meaning is
+    in the check's documentation); message: one plain sentence.
+    """
+
+    start_s: float
+    end_s: float
+    check: str
+    suspect: str = ""
+    severity: str = "warning"
+    value: float = float("nan")
+    message: str = ""
+
+
+def make_flags(rows: Sequence[Flag | Mapping[str, Any]]) -> pd.DataFrame:
+    """A flags table from :class:`Flag` records (or row dicts: missing suspect -> "",
+    value -> NaN)."""
     if not rows:
         return empty_flags()
-    df = pd.DataFrame(rows)
+    df = pd.DataFrame([asdict(r) if isinstance(r, Flag) else dict(r) for r in rows])
     for col in FLAG_COLUMNS:
         if col not in df:
             df[col] = float("nan") if col == "value" else ""

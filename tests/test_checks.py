@@ -16,13 +16,15 @@ import pytest
 from scipy import stats
 from scipy.signal import lfilter
 
-from pipeline.checks import run_checks, summary_lines
-from pipeline.checks.alignment import align_analyzers, cross_correlation_delay
+from pipeline.align import align_analyzers, cross_correlation_delay
+from pipeline.checks import run_checks
 from pipeline.checks.attribution import attribute
-from pipeline.checks.drift import MAD_TO_SIGMA, cusum_alarm
+from pipeline.checks.drift import cusum_alarm
 from pipeline.checks.intervals import hysteresis, mask_runs
 from pipeline.checks.residuals import carbon_fuel_flow, relative_residual
 from pipeline.checks.settings import DEFAULTS, resolve_settings
+from pipeline.checks.verdicts import console_lines
+from pipeline.constants import MAD_TO_SIGMA
 from pipeline.errors import ConfigError
 
 AFR = 14.5  # stoichiometric air/fuel ratio of a CH1.8 fuel, about 14.5 (REFERENCES 5)
@@ -266,7 +268,9 @@ def test_clean_nights_raise_no_instrument_flag() -> None:
         frame, derived = make_night(seed=100 + i, fuel=fuel, noise=noise, point_bias=bias)
         res = run_checks(frame, derived, {}, has_sensor=True)
         alarms += len(_judged_flags(res))
-        assert all(v == "ok" for _, v in res.verdicts if _ in ("co2", "o2", "air_mass_flow"))
+        assert all(
+            v.status == "ok" for v in res.verdicts if v.instrument in ("co2", "o2", "air_mass_flow")
+        )
     assert alarms == 0
 
 
@@ -353,7 +357,7 @@ def test_fault_is_found_with_suspect_onset_and_size(
     table = res.tables["drift"].set_index("residual")
     assert table["detected"].sum() >= 2
     assert (table["min_detectable_drift_pct"] < abs(100 * size)).all()
-    verdicts = dict(res.verdicts)
+    verdicts = {v.instrument: v.line for v in res.verdicts}
     for instrument in SUSPECT[fault].split("|"):
         assert verdicts[instrument] != "ok"
     others = {"co2", "o2", "air_mass_flow", "lambda_sensor"} - set(SUSPECT[fault].split("|"))
@@ -441,13 +445,16 @@ def test_out_of_range_and_time_irregular() -> None:
     )
 
 
-def test_summary_lines_count_flags() -> None:
+def test_console_lines_put_the_suspect_first() -> None:
     frame, derived = make_night(seed=7, fault="o2", kind="step", size=0.03, onset_h=2.5)
     res = run_checks(frame, derived, {}, has_sensor=True)
-    lines = summary_lines(res)
-    assert lines[0].startswith("co2")
-    assert any(line.startswith("o2") and "drift" in line for line in lines)
-    assert lines[-1].startswith("flags:") and "drift" in lines[-1]
+    lines = console_lines(res.verdicts)
+    assert lines[0].startswith("o2") and "drift" in lines[0] and "suspect" in lines[0]
+    assert any(line.startswith("co2") and line.endswith("ok") for line in lines)
+    # the same verdicts are the /verdicts table
+    table = res.tables["verdicts"]
+    assert list(table["instrument"]) == [v.instrument for v in res.verdicts]
+    assert table["status"].iloc[0] == "suspect" and table["suspect"].iloc[0] == "o2"
 
 
 def test_correlation_equals_scipy_signal_correlate() -> None:
@@ -456,7 +463,7 @@ def test_correlation_equals_scipy_signal_correlate() -> None:
     from scipy.fft import next_fast_len as scipy_next_fast_len
     from scipy.signal import correlate
 
-    from pipeline.checks.alignment import correlate_full, next_fast_len
+    from pipeline.align import correlate_full, next_fast_len
 
     for n in [*range(1, 2000), 432_001, 864_003, 4_320_007]:
         assert next_fast_len(n) == scipy_next_fast_len(n, True), n

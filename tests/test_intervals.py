@@ -2,7 +2,8 @@
 
 import numpy as np
 
-from pipeline.intervals import gap_flags, mask_to_intervals, runs
+from pipeline.checks.availability import gap_flags
+from pipeline.intervals import mask_to_intervals, runs
 
 
 def test_runs_and_intervals():
@@ -26,9 +27,9 @@ def test_gap_flags_group_channels_and_time_holes():
     rows = gap_flags(t, {"co2": a, "o2": b})
     assert len(rows) == 2
     first, hole = rows
-    assert first["suspect"] == "co2|o2"
-    assert (first["start_s"], first["end_s"]) == (9.0, 15.0)
-    assert hole["suspect"] == "time" and hole["value"] == 31.0
+    assert first.suspect == "co2|o2"
+    assert (first.start_s, first.end_s) == (9.0, 15.0)
+    assert hole.suspect == "time" and hole.value == 31.0
 
 
 def test_group_mean_std_equals_pandas_groupby() -> None:

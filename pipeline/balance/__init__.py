@@ -14,11 +14,12 @@ import pandas as pd
 
 from .. import constants as C
 from ..config import Config
-from ..data import columns_frame, make_flags
+from ..data import columns_frame
 from ..errors import ConfigError
 from ..fuels import Fuel
-from ..intervals import mask_to_intervals, runs
+from ..intervals import runs
 from .chemical import ChemicalBalance, chemical_balance
+from .driftcor import apply_drift_correction
 from .emissions import (
     KG_H_TO_G_S,
     brake_power_kw,
@@ -40,6 +41,12 @@ from .humidity import (
 from .methods import lambda_iso16183, lambda_spindt
 from .oxygen import lambda_brettschneider, lambda_oxygen_carbon_free
 
+#: Sampling state per sample (:attr:`BalanceResult.sampling_state`): the analyzers see
+#: exhaust; they read gas that cannot be exhaust (CO2 + O2 above air's, span gas), or within
+#: the response guard of a not-sampling stretch; exhaust carbon near zero while the bench
+#: reads; the logged ``analyzer_mode`` reports zero/span/purge. Higher is the stronger reason.
+STATE_SAMPLING, STATE_NOT_EXHAUST, STATE_LOW_CARBON, STATE_ANALYZER_MODE = 0, 1, 2, 3
+
 #: Above this CO2 + O2 (mol/mol, as read) the analyzers cannot be seeing combustion exhaust:
 #: air's O2 + CO2 is 0.2098 (REFERENCES 1.2), plus a margin for analyzer error and basis.
 IMPOSSIBLE_O2_PLUS_CO2 = 0.225
@@ -49,15 +56,17 @@ __all__ = ["BalanceResult", "compute_balance", "chemical_balance", "lambda_brett
 
 @dataclass
 class BalanceResult:
-    """Derived series (same rows as the input frame), flags, notes and attributes.
+    """Derived series (same rows as the input frame), sampling state, notes and attributes.
 
+    ``sampling_state`` says per sample whether and why the analyzers do not see exhaust
+    (``STATE_*`` codes; the checks stage turns it into ``analyzer_not_sampling`` flags);
     ``chem`` keeps the full chemical-balance solution (None for fuels without carbon) for the
     emission calculations; ``x_h2o_dryer`` the water left in dry-basis samples; ``basis`` the
     dry/wet basis of each analyzer (NOx split into NO/NO2 included).
     """
 
     derived: pd.DataFrame
-    flags: pd.DataFrame
+    sampling_state: np.ndarray
     warnings: list[str] = field(default_factory=list)
     attrs: dict[str, Any] = field(default_factory=dict)
     chem: ChemicalBalance | None = None
@@ -118,8 +127,8 @@ def compute_balance(
       pressure, else the ambient pressure).
 
     Where the analyzers do not sample exhaust (``analyzer_mode`` not 0, or exhaust carbon below
-    ``[sampling] not_sampling_carbon_fraction``) the exhaust-based values are NaN and, while
-    fuel flows, an ``analyzer_not_sampling`` flag is raised. ``analyzer_delay_s`` is the shift
+    ``[sampling] not_sampling_carbon_fraction``) the exhaust-based values are NaN and
+    ``sampling_state`` says why. ``analyzer_delay_s`` is the shift
     already applied to the gas channels of ``frame``: the ``analyzer_mode`` channel (not
     shifted) is applied both as logged and shifted by it, and every not-sampling stretch is
     widened by ``[sampling] not_sampling_guard_s`` for the analyzers' response.
@@ -167,6 +176,8 @@ def compute_balance(
 
     # Sampling state: analyzer_mode, and for carbon fuels exhaust carbon near zero.
     not_sampling = np.zeros(n, dtype=bool)
+    low_carbon = np.zeros(n, dtype=bool)
+    impossible = np.zeros(n, dtype=bool)
     if fuel.has_carbon:
         # CO and THC may be missing (NaN counts as 0 there); a missing CO2 is a data gap,
         # not "not sampling".
@@ -174,19 +185,24 @@ def compute_balance(
         for g in ("co", "thc"):
             if gases[g] is not None:
                 carbon = carbon + np.nan_to_num(gases[g], nan=0.0)
-        not_sampling = np.isfinite(carbon) & (carbon < s.not_sampling_carbon_fraction)
+        low_carbon = np.isfinite(carbon) & (carbon < s.not_sampling_carbon_fraction)
     if gases["o2"] is not None and gases["co2"] is not None:
         # Combustion turns O2 into at most as many moles of CO2 (for any fuel with
         # H/C >= 2 O/C), so in exhaust CO2 + O2 stays below the O2 + CO2 of air (0.2098,
         # REFERENCES 1.2); more means span gases or a calibration mix at the analyzers.
         with np.errstate(invalid="ignore"):
             impossible = gases["o2"] + gases["co2"] > IMPOSSIBLE_O2_PLUS_CO2
-        not_sampling |= impossible
     mode = _col(frame, "analyzer_mode")
-    if mode is not None:
-        not_sampling |= _mode_mask(t, mode, analyzer_delay_s)
-    not_sampling = _widen(t, not_sampling, s.not_sampling_guard_s)
+    mode_logged = np.isfinite(mode) & (mode != 0) if mode is not None else np.zeros(n, bool)
+    mode_seen = _mode_mask(t, mode, analyzer_delay_s) if mode is not None else mode_logged
+    not_sampling = _widen(t, low_carbon | impossible | mode_seen, s.not_sampling_guard_s)
     sampling = ~not_sampling
+    # Why each sample is not exhaust, the strongest reason first (the checks stage words it).
+    state = np.select(
+        [mode_logged, low_carbon, not_sampling],
+        [STATE_ANALYZER_MODE, STATE_LOW_CARBON, STATE_NOT_EXHAUST],
+        STATE_SAMPLING,
+    ).astype(np.int8)
 
     def masked(x: np.ndarray | None) -> np.ndarray | None:
         return None if x is None else np.where(sampling, x, np.nan)
@@ -260,41 +276,6 @@ def compute_balance(
         warnings.extend(notes)
     derived = columns_frame({**derived_cols, **extra})
 
-    fuel_on = np.nan_to_num(fuel_flow, nan=0.0) > 0
-    rows = _condensation_flags(frame, t, dew, s.condensation_margin_K)
-    for name in config.extra_lambda:
-        if not np.isfinite(derived[f"lambda_{name}"]).any() and n:
-            rows.append(
-                {
-                    "start_s": float(t[0]),
-                    "end_s": float(t[-1]),
-                    "check": "method_invalid",
-                    "suspect": "",
-                    "severity": "info",
-                    "value": np.nan,
-                    "message": f"lambda_{name} is not valid for fuel '{fuel.name}' "
-                    f"(O/C {fuel.o_c:g}); the series is NaN.",
-                }
-            )
-    for start, end, i0, i1 in mask_to_intervals(t, not_sampling & fuel_on):
-        if mode is not None and np.any(np.nan_to_num(mode[i0 : i1 + 1]) != 0):
-            why = "analyzer_mode reports zero/span/purge"
-        elif fuel.has_carbon and np.nanmin(carbon[i0 : i1 + 1]) < s.not_sampling_carbon_fraction:
-            why = "exhaust carbon reads near zero while fuel flows"
-        else:
-            why = "CO2 + O2 read above air's O2, as with span gas"
-        rows.append(
-            {
-                "start_s": start,
-                "end_s": end,
-                "check": "analyzer_not_sampling",
-                "suspect": "",
-                "severity": "info",
-                "value": float(i1 - i0 + 1),
-                "message": f"Analyzers not sampling exhaust ({why}); exhaust-based values "
-                f"are NaN for these {i1 - i0 + 1} samples.",
-            }
-        )
     attrs = {
         "dryer_water_fraction_mean": float(np.nanmean(x_h2o_dryer)) if n else 0.0,
         "intake_co2_dry_ppm": s.intake_co2_ppm,
@@ -303,8 +284,8 @@ def compute_balance(
         "water_gas_constant": C.K_WATER_GAS,
     }
     return BalanceResult(
-        derived=derived, flags=make_flags(rows), warnings=warnings, attrs=attrs, chem=chem,
-        x_h2o_dryer=x_h2o_dryer, basis=basis,
+        derived=derived, warnings=warnings, attrs=attrs, chem=chem,
+        x_h2o_dryer=x_h2o_dryer, basis=basis, sampling_state=state,
     )
 
 
@@ -402,37 +383,6 @@ def _extra_lambdas(
     return out, notes
 
 
-def _condensation_flags(
-    frame: pd.DataFrame, t: np.ndarray, dew: np.ndarray, margin_k: float
-) -> list[dict[str, Any]]:
-    """``condensation_risk`` where the logged sample-line temperature is below the exhaust
-    dew point plus the margin (intervals closer than 60 s merged, shorter than 10 s
-    ignored)."""
-    if "sample_line_temperature" not in frame:
-        return []
-    line = frame["sample_line_temperature"].to_numpy(float)
-    with np.errstate(invalid="ignore"):
-        short = line - (dew + margin_k)
-        risk = np.isfinite(short) & (short < 0)
-    rows = []
-    for start, end, i0, i1 in mask_to_intervals(t, risk, min_duration_s=10.0, merge_gap_s=60.0):
-        worst = float(np.nanmin((line - dew)[i0 : i1 + 1]))
-        where = f"{-worst:.1f} K below" if worst < 0 else f"only {worst:.1f} K above"
-        rows.append(
-            {
-                "start_s": start,
-                "end_s": end,
-                "check": "condensation_risk",
-                "suspect": "sample_line_temperature",
-                "severity": "warning",
-                "value": worst,
-                "message": f"Sample line {where} the exhaust dew point at worst (margin "
-                f"{margin_k:g} K): water may condense and wash out NO2 and HC.",
-            }
-        )
-    return rows
-
-
 def _mode_mask(t: np.ndarray, mode: np.ndarray, delay_s: float) -> np.ndarray:
     """Samples where ``analyzer_mode`` is not 0, as logged and as seen through the analyzer
     shift (the aligned gas value at t was read at t + delay)."""
@@ -504,3 +454,38 @@ def _carbon_free_oxygen_side(
             break
         x_w = new
     return lam, x_w
+
+
+#: Emission rates repeated on the drift-corrected readings.
+DRIFTCOR_RATES = ("co2_mass_flow", "co_mass_flow", "nox_mass_flow", "thc_mass_flow")
+
+
+@dataclass
+class DriftCorrected:
+    """The balance on drift-corrected analyzer readings (40 CFR 1065.672).
+
+    series: the corrected gases and emission rates, named ``<name>_driftcor``; derived: the
+    whole balance on the corrected readings (for the 1065.550 comparison of the emissions
+    table); readings: the zero/span readings used (the ``drift_correction`` table); notes:
+    plain sentences for the console.
+    """
+
+    series: dict[str, np.ndarray]
+    derived: pd.DataFrame
+    readings: pd.DataFrame
+    notes: list[str] = field(default_factory=list)
+
+
+def drift_corrected(
+    frame: pd.DataFrame, config: Config, *, analyzer_delay_s: float = 0.0
+) -> DriftCorrected | None:
+    """Drift-correct the configured analyzers and compute the balance again on them
+    (:func:`.driftcor.apply_drift_correction`, 40 CFR 1065.672); None when no analyzer has a
+    ``[drift_correction.<gas>]`` table."""
+    corrected_frame, readings, notes = apply_drift_correction(frame, config)
+    if corrected_frame is None or readings is None:
+        return None
+    derived = compute_balance(corrected_frame, config, analyzer_delay_s=analyzer_delay_s).derived
+    series = {f"{g}_driftcor": corrected_frame[g].to_numpy() for g in config.drift_correction.gases}
+    series.update({f"{r}_driftcor": derived[r].to_numpy() for r in DRIFTCOR_RATES if r in derived})
+    return DriftCorrected(series, derived, readings, notes)

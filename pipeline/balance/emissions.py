@@ -172,3 +172,31 @@ def carbon_mass_in_exhaust(m_co2_g: ArrayLike, m_co_g: ArrayLike, m_thc_g: Array
         + np.asarray(m_co_g, float) / C.M_CO
         + np.asarray(m_thc_g, float) / m_thc_molar_mass
     )
+
+
+def carbon_balance_error_rate(
+    fuel_kg_h: ArrayLike,
+    fuel_carbon_kg_h: ArrayLike,
+    air_dry_kg_h: ArrayLike | None,
+    w_c: float,
+    x_co2_air: float = C.X_CO2_AIR_DRY,
+) -> Array:
+    """Relative carbon-balance error eps_rC of 40 CFR 1065.643, in rate form, as a fraction.
+
+    eps_rC = (m_Cexh - m_Cfluid - m_Cair) / (m_Cfluid + m_Cair) (REFERENCES 1.9). The exhaust
+    carbon is the fuel carbon implied by the exhaust (``fuel_mass_flow_carbon``, i.e. air flow
+    and exhaust carbon) plus the intake-air carbon, so m_Cexh - m_Cfluid - m_Cair =
+    w_C (m_fuel,carbon - m_fuel). Intake-air carbon m_Cair = n_air x_CO2,air M_C, with the dry
+    air molar mass :data:`~pipeline.constants.M_AIR`; it is left out when ``air_dry_kg_h`` is
+    None. All rates in kg/h; ``w_c`` is the fuel carbon mass fraction; NaN where the fuel flow
+    and air carbon are both zero.
+    """
+    m_c_fuel = w_c * np.asarray(fuel_kg_h, dtype=np.float64)
+    m_c_exh_fuel = w_c * np.asarray(fuel_carbon_kg_h, dtype=np.float64)
+    if air_dry_kg_h is None:
+        m_c_air = np.zeros_like(m_c_fuel)
+    else:
+        m_c_air = np.asarray(air_dry_kg_h, dtype=np.float64) / C.M_AIR * x_co2_air * C.M_C
+    eps_ac = (m_c_exh_fuel + m_c_air) - m_c_fuel - m_c_air  # m_Cexh - m_Cfluid - m_Cair
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return eps_ac / (m_c_fuel + m_c_air)

@@ -1,19 +1,17 @@
-"""The checks stage: alignment, steady points, residuals, disagreement, drift, attribution.
+"""The checks stage: steady points, residuals, disagreement, drift, attribution, flags,
+verdicts.
 
 Between balance and report. Pure functions over arrays; every threshold is a named default in
 :mod:`pipeline.checks.settings` that the ``[checks]`` config table can override, and the full
 set used is returned in :attr:`ChecksResult.attrs` for the result file.
 
-- :func:`pipeline.checks.alignment.align_analyzers`: analyzer transport delay (run first, on
-  the ingest frame, before balance).
-- :func:`run_checks`: everything else, on the aligned frame and the balance output.
-- :func:`summary_lines`: console lines, one per instrument, plus flag counts.
+- :func:`run_checks`: everything else, on the aligned frame and the balance output, ending
+  with the one verdict computation (:mod:`.verdicts`).
 """
 
 from __future__ import annotations
 
-from collections import Counter
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from datetime import datetime
 from typing import Any
@@ -21,24 +19,21 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..data import make_flags
+from ..data import Flag, make_flags
+from ..instruments import CORE_INSTRUMENTS
 from ..quantities import GASES
 from . import attribution as attr_mod
-from .alignment import align_analyzers
+from .availability import condensation_flags, gap_flags, method_invalid_flags, not_sampling_flags
 from .disagreement import disagreement_intervals, merge_events
 from .drift import DriftResult, block_samples, detect_drift, drift_table, refine_step_onset
 from .intervals import format_elapsed, make_clock
 from .quality import out_of_range_flags, time_irregular_flags
 from .residuals import ESTIMATE_COLUMNS, carbon_fuel_flow, compute_residuals, relative_residual
-from .settings import resolve_settings, thresholds_used
+from .settings import CheckSettings, resolve_settings, thresholds_used
 from .steady import steady_mask, steady_points_table
+from .verdicts import Verdict, judge, verdicts_table
 
-__all__ = ["ChecksResult", "align_analyzers", "run_checks", "summary_lines"]
-
-#: Instruments that always get a verdict line (others only when flagged).
-CORE_INSTRUMENTS = ("co2", "o2", "air_mass_flow", "fuel_mass_flow")
-
-_SEVERITY_RANK = {"info": 0, "warning": 1, "error": 2}
+__all__ = ["CheckSettings", "ChecksResult", "run_checks"]
 
 
 @dataclass
@@ -48,7 +43,9 @@ class ChecksResult:
     series: per-row arrays for ``/timeseries/`` (``steady``, ``residual_*``,
     ``fuel_mass_flow_carbon``, ``residual_fuel_flow``); series_attrs: ``units`` and
     ``long_name`` per series; flags: FLAG_COLUMNS table; tables: ``steady_points`` and
-    ``drift``; attrs: every threshold used plus method notes; verdicts: (instrument, verdict).
+    ``drift`` and ``verdicts``; attrs: every threshold used plus method notes; verdicts: one
+    :class:`~pipeline.checks.verdicts.Verdict` per instrument (also as the ``verdicts``
+    table).
     """
 
     series: dict[str, np.ndarray]
@@ -56,7 +53,7 @@ class ChecksResult:
     flags: pd.DataFrame
     tables: dict[str, pd.DataFrame] = field(default_factory=dict)
     attrs: dict[str, Any] = field(default_factory=dict)
-    verdicts: list[tuple[str, str]] = field(default_factory=list)
+    verdicts: list[Verdict] = field(default_factory=list)
 
 
 def _column(df: pd.DataFrame, name: str, n: int, default: float = np.nan) -> np.ndarray:
@@ -177,24 +174,32 @@ def _drift_flags(
 def run_checks(
     frame: pd.DataFrame,
     derived: pd.DataFrame,
-    settings: dict,
+    settings: CheckSettings | Mapping[str, Any],
     *,
     has_sensor: bool,
     start_time: datetime | None = None,
+    logged: pd.DataFrame | None = None,
+    sampling_state: np.ndarray | None = None,
 ) -> ChecksResult:
-    """Steady points, residuals, disagreement, drift, attribution and data-quality flags.
+    """Steady points, residuals, disagreement, drift, attribution, every flag of the night
+    and the verdict per instrument.
 
     Parameters
     ----------
     frame: the aligned ingest frame (``time`` [s] and canonical channels).
     derived: balance output on the same rows: ``lambda_flow``, ``lambda_carbon``,
-        ``lambda_oxygen``, ``valid`` and ``sampling`` (1/0).
-    settings: the ``[checks]`` table (unknown keys raise ConfigError), optionally with
-        ``ranges`` = {quantity: full scale in canonical units}.
+        ``lambda_oxygen``, ``valid`` and ``sampling`` (1/0), ``exhaust_dewpoint``.
+    settings: a :class:`CheckSettings`, or the ``[checks]`` table (unknown keys raise
+        ConfigError), optionally with ``ranges`` = {quantity: full scale, canonical units}.
     has_sensor: whether ``frame`` holds a logged ``lambda_sensor``.
     start_time: absolute start of the run (UTC); messages then give clock times.
+    logged: the frame as logged (before the analyzer shift), for ``data_gap`` flags: gaps are
+        found in the data as logged, so a dropout of the whole logger is one flag and the
+        shifted tail is not mistaken for one.
+    sampling_state: the balance's per-sample sampling state, for ``analyzer_not_sampling``.
     """
     s = resolve_settings(settings)
+    typed = settings if isinstance(settings, CheckSettings) else None
     time = frame["time"].to_numpy(dtype=float)
     n = len(time)
     estimates = {k: _column(derived, ESTIMATE_COLUMNS[k], n) for k in ("flow", "carbon", "oxygen")}
@@ -235,6 +240,7 @@ def run_checks(
     rows += _drift_flags(blocks, results, noise, lam, s, clock)
     rows += out_of_range_flags(frame, s["ranges"], s)
     rows += time_irregular_flags(time, s)
+    rows += _availability_flags(frame, derived, logged, sampling_state, typed)
     flags = make_flags(rows)
     if len(flags):
         flags = flags.sort_values(["start_s", "check"], kind="stable").reset_index(drop=True)
@@ -248,78 +254,48 @@ def run_checks(
     if "sensor" in estimates:
         instruments.append("lambda_sensor")
     instruments += [g for g in GASES if g in frame and g not in instruments]
+    drift = drift_table(results)
+    verdicts = judge(
+        flags, instruments, drift=drift, start_time=start_time,
+        end_s=float(time[-1]) if n else float("nan"),
+    )
     return ChecksResult(
         series=series,
         series_attrs=_series_attrs(list(residuals)),
         flags=flags,
-        tables={"steady_points": steady_points, "drift": drift_table(results)},
+        tables={"steady_points": steady_points, "drift": drift,
+                "verdicts": verdicts_table(verdicts)},
         attrs=attrs,
-        verdicts=instrument_verdicts(flags, instruments, clock),
+        verdicts=verdicts,
     )
 
 
-def _flag_phrase(
-    row: pd.Series, instrument: str, clock: Callable[[float], str] = format_elapsed
-) -> str:
-    start, end = float(row["start_s"]), float(row["end_s"])
-    hours = (end - start) / 3600.0
-    value = float(row["value"])
-    shared = "|" in str(row["suspect"])
-    if row["check"] in ("drift", "lambda_disagreement"):
-        word = "drift" if row["check"] == "drift" else "disagreement"
-        if instrument == "co2":
-            err = 100 * abs(value / 100) / (1 + value / 100)
-            size = f"reads {err:.1f} % {'low' if value > 0 else 'high'}"
-        else:
-            size = f"{value:+.1f} % in lambda"
-        who = ", shared suspect" if shared else ", suspect"
-        return f"{word} {size} from {clock(start)}, flagged for {hours:.1f} h{who}"
-    span = f"{hours:.1f} h" if hours >= 1 else f"{max(1, round(hours * 60))} min"
-    if row["check"] == "condensation_risk":
-        where = f"{-value:.0f} K below" if value < 0 else f"only {value:.0f} K above"
-        return f"condensation risk from {clock(start)} for {span}: line {where} the dew point"
-    return f"{str(row['check']).replace('_', ' ')} from {clock(start)} for {span}"
-
-
-def instrument_verdicts(
-    flags: pd.DataFrame,
-    instruments: list[str],
-    clock: Callable[[float], str] = format_elapsed,
-) -> list[tuple[str, str]]:
-    """One verdict per instrument: "ok" or its flags, most severe first."""
-    out = []
-    names = list(instruments)
-    for sus in flags["suspect"] if len(flags) else []:
-        for part in str(sus).split("|"):
-            if part and part != "time" and part not in names:
-                names.append(part)
-    for name in names:
-        mine = (
-            flags[flags["suspect"].astype(str).str.split("|").apply(lambda p, n=name: n in p)]
-            if len(flags)
-            else flags
+def _availability_flags(
+    frame: pd.DataFrame,
+    derived: pd.DataFrame,
+    logged: pd.DataFrame | None,
+    sampling_state: np.ndarray | None,
+    settings: CheckSettings | None,
+) -> list[Flag]:
+    """Gaps (in the data as logged), analyzers not sampling, condensation risk, invalid
+    alternative lambda methods (:mod:`.availability`)."""
+    time = frame["time"].to_numpy(dtype=float)
+    n = len(time)
+    out: list[Flag] = []
+    if logged is not None:
+        essential = [c for c in ("fuel_mass_flow", "air_mass_flow", *GASES) if c in logged]
+        out += gap_flags(
+            logged["time"].to_numpy(dtype=float), {c: logged[c].to_numpy() for c in essential}
         )
-        if not len(mine):
-            out.append((name, "ok"))
-            continue
-        rank = mine["severity"].map(_SEVERITY_RANK).fillna(0)
-        mine = mine.assign(_r=rank).sort_values(["_r", "start_s"], ascending=[False, True])
-        counts = Counter(mine["check"])
-        first = _flag_phrase(mine.iloc[0], name, clock)
-        extra = sum(counts.values()) - 1
-        out.append(
-            (name, first + (f" (+{extra} more flag{'s' if extra > 1 else ''})" if extra else ""))
-        )
+    if sampling_state is not None:
+        fuel_on = np.nan_to_num(_column(frame, "fuel_mass_flow", n), nan=0.0) > 0
+        out += not_sampling_flags(time, sampling_state, fuel_on)
+    margin = settings.condensation_margin_K if settings is not None else 5.0
+    if "exhaust_dewpoint" in derived:
+        line = _column(frame, "sample_line_temperature", n) if "sample_line_temperature" in frame \
+            else None
+        out += condensation_flags(time, line, _column(derived, "exhaust_dewpoint", n), margin)
+    if settings is not None and settings.extra_lambda:
+        out += method_invalid_flags(time, derived, settings.extra_lambda, settings.fuel_name,
+                                    settings.fuel_o_c)
     return out
-
-
-def summary_lines(result: ChecksResult) -> list[str]:
-    """Console summary: one line per instrument with its verdict, then the flags counted."""
-    width = max((len(n) for n, _ in result.verdicts), default=0)
-    lines = [f"{name:<{width}}  {verdict}" for name, verdict in result.verdicts]
-    if len(result.flags):
-        counts = Counter(result.flags["check"])
-        lines.append("flags: " + ", ".join(f"{c} {k}" for k, c in sorted(counts.items())))
-    else:
-        lines.append("flags: none")
-    return lines

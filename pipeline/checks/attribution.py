@@ -27,15 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .residuals import RESIDUAL_PAIRS
-
-#: Suspect name (canonical channels) -> readable instrument description.
-SUSPECT_LABELS = {
-    "co2": "CO2 (carbon) analyzer",
-    "o2": "O2 analyzer",
-    "air_mass_flow|fuel_mass_flow": "air or fuel flow meter",
-    "lambda_sensor": "lambda sensor",
-}
+from ..instruments import RESIDUAL_PAIRS, label
 
 
 def hypotheses(lambda_typical: float) -> dict[str, dict[str, float]]:
@@ -123,7 +115,7 @@ def describe(att: Attribution) -> str:
         if "|" not in att.suspect.replace("air_mass_flow|fuel_mass_flow", "")
         else (
             f" (pattern unclear: only {100 * att.explained:.0f} % explained; "
-            f"also consistent with the {SUSPECT_LABELS.get(att.ranking[1][0], att.ranking[1][0])})"
+            f"also consistent with the {label(att.ranking[1][0])})"
         )
     )
     moved = ", ".join(
@@ -133,13 +125,13 @@ def describe(att: Attribution) -> str:
         err = 100 * abs(att.amount) / (1 + att.amount)
         what = (
             f"lambda_carbon moved {pct:+.1f} % against the other estimates, "
-            f"so the CO2 (carbon) analyzer reads about {err:.1f} % "
+            f"so the {label('co2')} reads about {err:.1f} % "
             f"{'low' if att.amount > 0 else 'high'}"
         )
     elif best == "o2":
         what = (
             f"lambda_oxygen moved {pct:+.1f} % against the other estimates, "
-            f"so the O2 analyzer reads {'high' if att.amount > 0 else 'low'}"
+            f"so the {label('o2')} reads {'high' if att.amount > 0 else 'low'}"
         )
     elif best == "air_mass_flow|fuel_mass_flow":
         what = (

@@ -31,10 +31,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from ..constants import MAD_TO_SIGMA
 from ..data import columns_frame
-
-#: 1.4826: MAD of a normal sample times this estimates its standard deviation.
-MAD_TO_SIGMA = 1.4826
 
 
 def block_samples(

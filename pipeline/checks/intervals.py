@@ -51,15 +51,15 @@ def format_elapsed(seconds: float) -> str:
 
 
 def make_clock(start: datetime | None) -> Callable[[float], str]:
-    """Time labels for messages: ``03:25 UTC`` when the run's start is known, else the
-    elapsed ``hh:mm`` of :func:`format_elapsed`."""
+    """Time labels for messages: ``03:25 UTC`` (rounded to the nearest minute, as
+    :func:`format_elapsed`) when the run's start is known, else the elapsed ``hh:mm``."""
     if start is None:
         return format_elapsed
 
     def clock(seconds: float) -> str:
         if not np.isfinite(seconds):
             return "--:--"
-        when = start.astimezone(UTC) + timedelta(seconds=float(seconds))
+        when = start.astimezone(UTC) + timedelta(minutes=round(float(seconds) / 60.0))
         return when.strftime("%H:%M UTC")
 
     return clock

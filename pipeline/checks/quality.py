@@ -7,6 +7,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ..constants import MAD_TO_SIGMA
 from ..quantities import GASES
 from .intervals import mask_runs, median_may_reach, median_step, merge_runs, rolling_median_at
 
@@ -52,7 +53,7 @@ def out_of_range_flags(
             # samples scatters by 1.2533 sigma / sqrt(n))
             d = np.diff(raw[np.isfinite(raw)])
             if d.size:
-                noise = 1.4826 * float(np.median(np.abs(d - np.median(d)))) / np.sqrt(2.0)
+                noise = MAD_TO_SIGMA * float(np.median(np.abs(d - np.median(d)))) / np.sqrt(2.0)
                 tol = max(tol, 6.0 * 1.2533 * noise / np.sqrt(n_smooth))
             limits.append(("negative", -tol, np.inf))
         if full:

@@ -9,24 +9,10 @@ from __future__ import annotations
 
 import numpy as np
 
-#: Residual name -> (numerator estimate, denominator estimate).
-RESIDUAL_PAIRS: dict[str, tuple[str, str]] = {
-    "residual_carbon_flow": ("carbon", "flow"),
-    "residual_oxygen_flow": ("oxygen", "flow"),
-    "residual_oxygen_carbon": ("oxygen", "carbon"),
-    "residual_sensor_flow": ("sensor", "flow"),
-    "residual_sensor_carbon": ("sensor", "carbon"),
-    "residual_sensor_oxygen": ("sensor", "oxygen"),
-}
+from ..instruments import ESTIMATE_COLUMNS, RESIDUAL_PAIRS
 
-#: The estimate each name stands for.
-ESTIMATE_COLUMNS = {
-    "flow": "lambda_flow",
-    "carbon": "lambda_carbon",
-    "oxygen": "lambda_oxygen",
-    "sensor": "lambda_sensor",
-}
-
+__all__ = ["ESTIMATE_COLUMNS", "RESIDUAL_PAIRS", "carbon_fuel_flow", "compute_residuals",
+           "relative_residual"]
 
 def relative_residual(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """``a / b - 1``; NaN where either is missing or ``b`` is not positive."""

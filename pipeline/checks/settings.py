@@ -11,9 +11,14 @@ which the result file records so a result can be reproduced.
 from __future__ import annotations
 
 import difflib
-from typing import Any
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
 
 from ..errors import ConfigError
+
+if TYPE_CHECKING:
+    from ..config import Config
 
 # --- time alignment (REFERENCES 1.12: t50 of 40 CFR 1065.308 is the delay to remove) --------
 #: Analyzer transport delay used when neither the night's transients nor the config give one
@@ -189,14 +194,18 @@ DEFAULTS: dict[str, float] = {
 EXTRA_KEYS = ("ranges",)
 
 
-def resolve_settings(settings: dict[str, Any] | None) -> dict[str, Any]:
+def resolve_settings(settings: Mapping[str, Any] | CheckSettings | None) -> dict[str, Any]:
     """Return every threshold (defaults overridden by ``settings``) plus the extra keys.
+
+    A :class:`CheckSettings` is already resolved: its thresholds and ranges are returned.
 
     Raises
     ------
     ConfigError
         For an unknown key (with a "did you mean" hint) or a non-numeric / negative value.
     """
+    if isinstance(settings, CheckSettings):
+        return {**settings.thresholds, "ranges": dict(settings.ranges)}
     settings = dict(settings or {})
     resolved: dict[str, Any] = dict(DEFAULTS)
     allowed = sorted(set(DEFAULTS) | set(EXTRA_KEYS))
@@ -224,3 +233,43 @@ def resolve_settings(settings: dict[str, Any] | None) -> dict[str, Any]:
 def thresholds_used(resolved: dict[str, Any]) -> dict[str, float]:
     """The threshold part of resolved settings, for the result file attributes."""
     return {k: float(resolved[k]) for k in DEFAULTS}
+
+
+@dataclass(frozen=True)
+class CheckSettings:
+    """Everything the checks stage is set with, resolved once from the config.
+
+    thresholds: every threshold of :data:`DEFAULTS` (the ``[checks]`` table applied);
+    ranges: analyzer full scale per quantity, canonical units (the channels' ``range``);
+    condensation_margin_K: ``[sampling] condensation_margin_K``; analyzer_delay_s: the
+    configured delay (``[sampling] analyzer_delay_s``, None to estimate it); extra_lambda:
+    the alternative lambda methods asked for; fuel_name, fuel_o_c: for the method notes.
+    ``settings["key"]`` reads a threshold (and ``settings["ranges"]`` the ranges).
+    """
+
+    thresholds: Mapping[str, float]
+    ranges: Mapping[str, float] = field(default_factory=dict)
+    condensation_margin_K: float = 5.0
+    analyzer_delay_s: float | None = None
+    extra_lambda: tuple[str, ...] = ()
+    fuel_name: str = ""
+    fuel_o_c: float = 0.0
+
+    def __getitem__(self, key: str) -> Any:
+        return self.ranges if key == "ranges" else self.thresholds[key]
+
+    @classmethod
+    def from_config(cls, config: Config) -> CheckSettings:
+        """The settings of a loaded cell config (unknown or bad ``[checks]`` keys raise
+        :class:`~pipeline.errors.ConfigError`)."""
+        ranges = {n: c.range for n, c in config.channels.items() if c.range}
+        resolved = resolve_settings({**dict(config.checks), "ranges": ranges})
+        return cls(
+            thresholds=thresholds_used(resolved),
+            ranges=resolved["ranges"],
+            condensation_margin_K=float(config.sampling.condensation_margin_K),
+            analyzer_delay_s=config.sampling.analyzer_delay_s,
+            extra_lambda=tuple(config.extra_lambda),
+            fuel_name=config.fuel.name,
+            fuel_o_c=float(config.fuel.o_c),
+        )

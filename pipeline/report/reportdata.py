@@ -15,70 +15,25 @@ copies.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
-from datetime import timedelta
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from ..balance.emissions import carbon_balance_error_rate
+from ..checks.intervals import make_clock
+from ..checks.settings import DEFAULTS
+from ..checks.verdicts import Verdict, judge, verdicts_from_table
+from ..constants import X_CO2_AIR_DRY
+from ..instruments import AVAILABILITY_CHECKS, CORE_INSTRUMENTS, FAULT_CHECKS, RESIDUAL_SERIES
 from ..intervals import group_mean_std
 from ..result import ResultFile
-
-#: Default consistency tolerance (fraction) when the result carries no checks settings:
-#: +-3 % between lambda estimates, common practice for a healthy raw-exhaust bench (from memory).
-DEFAULT_TOLERANCE = 0.03
 
 #: Length of the blocks [s] used to show the spread inside steady points in scatter plots.
 BLOCK_S = 300.0
 
-#: Lambda estimate moved by a fault of each suspect (DESIGN.md "Lambda estimates").
-SUSPECT_ESTIMATE: dict[str, str] = {
-    "co2": "lambda_carbon",
-    "co": "lambda_carbon",
-    "thc": "lambda_carbon",
-    "o2": "lambda_oxygen",
-    "air_mass_flow": "lambda_flow",
-    "fuel_mass_flow": "lambda_flow",
-    "air_mass_flow|fuel_mass_flow": "lambda_flow",
-    "lambda_sensor": "lambda_sensor",
-}
-
-#: Plain names of the instruments behind canonical channel names.
-INSTRUMENT_NAMES: dict[str, str] = {
-    "co2": "CO2 analyzer",
-    "co": "CO analyzer",
-    "o2": "O2 analyzer",
-    "thc": "THC analyzer",
-    "nox": "NOx analyzer",
-    "no": "NO analyzer",
-    "no2": "NO2 analyzer",
-    "h2": "H2 analyzer",
-    "air_mass_flow": "air flow meter",
-    "fuel_mass_flow": "fuel flow meter",
-    "air_mass_flow|fuel_mass_flow": "air or fuel flow meter",
-    "lambda_sensor": "wide-band lambda sensor",
-    "speed": "speed measurement",
-    "torque": "torque measurement",
-    "sample_line_temperature": "sample line heating",
-    "time": "logger clock",
-}
-
-#: Checks that say data are missing or not exhaust, not that an instrument is wrong.
-AVAILABILITY_CHECKS = ("data_gap", "analyzer_not_sampling", "time_irregular")
-
-#: Checks that make an instrument a suspect of a measurement error.
-FAULT_CHECKS = ("drift", "lambda_disagreement")
-
 #: The residual series of the checks stage and the estimates they compare.
-RESIDUALS: dict[str, tuple[str, str]] = {
-    "residual_carbon_flow": ("lambda_carbon", "lambda_flow"),
-    "residual_oxygen_flow": ("lambda_oxygen", "lambda_flow"),
-    "residual_oxygen_carbon": ("lambda_oxygen", "lambda_carbon"),
-    "residual_sensor_flow": ("lambda_sensor", "lambda_flow"),
-    "residual_sensor_carbon": ("lambda_sensor", "lambda_carbon"),
-    "residual_sensor_oxygen": ("lambda_sensor", "lambda_oxygen"),
-}
+RESIDUALS = RESIDUAL_SERIES
 
 #: Emission-rate series shown per steady point, with plain labels.
 EMISSIONS: dict[str, str] = {
@@ -90,8 +45,6 @@ EMISSIONS: dict[str, str] = {
 
 #: Fraction of a steady point a fault flag must cover to be named in the point's verdict.
 MIN_OVERLAP = 0.2
-
-_SEVERITY_RANK = {"info": 0, "warning": 1, "error": 2}
 
 #: Attribute of a ResultFile holding the memo of :func:`_memo`.
 _MEMO_ATTR = "_reportdata_memo"
@@ -135,7 +88,7 @@ def clock(res: ResultFile, seconds: float, *, with_elapsed: bool = False) -> str
     hours = seconds / 3600.0
     if res.start_time is None:
         return f"{hours:.1f} h into the run"
-    text = f"{res.start_time + timedelta(minutes=round(seconds / 60.0)):%H:%M} UTC"
+    text = make_clock(res.start_time)(seconds)
     return f"{text} ({hours:.1f} h into the run)" if with_elapsed else text
 
 
@@ -157,14 +110,19 @@ def tolerance(res: ResultFile) -> tuple[float, float, str]:
     """(tolerance, sensor tolerance, source) for the consistency band, as fractions.
 
     From ``attrs["checks_settings"]`` (``disagreement_tolerance``,
-    ``disagreement_tolerance_sensor``) when present, else :data:`DEFAULT_TOLERANCE` for both.
+    ``disagreement_tolerance_sensor``) when present, else the checks stage's defaults
+    (:mod:`pipeline.checks.settings`), the values such a result was judged with.
     """
     s = res.attrs.get("checks_settings")
     if isinstance(s, dict) and np.isfinite(float(s.get("disagreement_tolerance", np.nan))):
         tol = float(s["disagreement_tolerance"])
         tol_s = float(s.get("disagreement_tolerance_sensor", tol))
         return tol, tol_s, "checks settings of this result"
-    return DEFAULT_TOLERANCE, DEFAULT_TOLERANCE, "dynoqc default (no checks settings in result)"
+    return (
+        DEFAULTS["disagreement_tolerance"],
+        DEFAULTS["disagreement_tolerance_sensor"],
+        "checks defaults (no checks settings in result)",
+    )
 
 
 def series(res: ResultFile, name: str) -> np.ndarray | None:
@@ -286,36 +244,11 @@ POINT_QUANTITIES = (
 )
 
 
-def carbon_balance_error(
-    fuel_kg_h: np.ndarray,
-    fuel_carbon_kg_h: np.ndarray,
-    air_dry_kg_h: np.ndarray | None,
-    w_c: float,
-    x_co2_air: float,
-) -> np.ndarray:
-    """Relative carbon-balance error eps_rC of 40 CFR 1065.643, in rate form, as a fraction.
-
-    eps_rC = (m_Cexh - m_Cfluid - m_Cair) / (m_Cfluid + m_Cair). The exhaust carbon is the
-    fuel carbon implied by the exhaust (``fuel_mass_flow_carbon``, i.e. air flow and
-    exhaust carbon) plus the intake-air carbon, so m_Cexh - m_Cfluid - m_Cair =
-    w_C (m_fuel,carbon - m_fuel). Intake-air carbon m_Cair = n_air x_CO2,air M_C with the dry
-    air molar mass 28.96 g/mol (common practice); it is left out when ``air_dry_kg_h`` is
-    None. All rates in kg/h; ``w_c`` is the fuel carbon mass fraction.
-    """
-    m_c_fuel = w_c * np.asarray(fuel_kg_h, dtype=np.float64)
-    m_c_exh_fuel = w_c * np.asarray(fuel_carbon_kg_h, dtype=np.float64)
-    if air_dry_kg_h is None:
-        m_c_air = np.zeros_like(m_c_fuel)
-    else:
-        m_c_air = np.asarray(air_dry_kg_h, dtype=np.float64) / 28.96 * x_co2_air * 12.0107
-    with np.errstate(invalid="ignore", divide="ignore"):  # zero fuel: undefined -> NaN
-        return (m_c_exh_fuel - m_c_fuel) / (m_c_fuel + m_c_air)
-
-
 def steady_point_stats(res: ResultFile) -> pd.DataFrame:
     """One row per steady point: number, window, clock mid-time, samples used, and the mean of
     every quantity of :data:`POINT_QUANTITIES` present (NaN columns when absent), plus
-    ``carbon_balance_error`` (fraction, :func:`carbon_balance_error`) when the fuel flows are
+    ``carbon_balance_error`` (fraction,
+    :func:`pipeline.balance.emissions.carbon_balance_error_rate`) when the fuel flows are
     there. Empty when the result has no steady points.
     """
     return _memo(res, ("steady_point_stats",), lambda: _steady_point_stats(res)).copy()
@@ -334,11 +267,11 @@ def _steady_point_stats(res: ResultFile) -> pd.DataFrame:
     fuel = res.attrs.get("fuel") if isinstance(res.attrs.get("fuel"), dict) else {}
     w_c = float(fuel.get("w_c", np.nan))
     bal = res.attrs.get("balance") if isinstance(res.attrs.get("balance"), dict) else {}
-    x_co2 = float(bal.get("intake_co2_dry_ppm", 375.0)) * 1e-6
+    x_co2 = float(bal.get("intake_co2_dry_ppm", X_CO2_AIR_DRY * 1e6)) * 1e-6
     has_air = series(res, "air_dry_mass_flow") is not None
     air = out["air_dry_mass_flow"].to_numpy() if has_air else None
     if np.isfinite(w_c) and n:
-        out["carbon_balance_error"] = carbon_balance_error(
+        out["carbon_balance_error"] = carbon_balance_error_rate(
             out["fuel_mass_flow"].to_numpy(), out["fuel_mass_flow_carbon"].to_numpy(), air, w_c,
             x_co2,
         )
@@ -469,151 +402,21 @@ def point_verdicts(points: pd.DataFrame, flags: pd.DataFrame, tol: float) -> lis
     return out
 
 
-@dataclass
-class Verdict:
-    """The verdict on one instrument: status (``suspect``, ``shared suspect``, ``attention``,
-    ``ok``), one plain sentence, and the flag rows (indices into ``/flags/``) behind it."""
-
-    instrument: str
-    name: str
-    status: str
-    sentence: str
-    flags: list[int] = field(default_factory=list)
-
-    def as_dict(self) -> dict[str, Any]:
-        """Plain dict for the JSON summary."""
-        return {
-            "instrument": self.instrument,
-            "name": self.name,
-            "status": self.status,
-            "sentence": self.sentence,
-            "flag_rows": self.flags,
-        }
-
-
-def _fault_sentence(
-    res: ResultFile, row: pd.Series, drift: pd.DataFrame | None, span: tuple[float, float]
-) -> str:
-    """What a drift or disagreement flag means for its suspect, in plain words; ``span`` is
-    the time covered by all fault flags on the instrument (start, end) [s]."""
-    suspect = str(row["suspect"])
-    value = float(row["value"])
-    start, end = span
-    t_end = float(res.timeseries["time"].iloc[-1]) if len(res.timeseries) else np.nan
-    until = (
-        "to the end of the run"
-        if np.isfinite(t_end) and end >= t_end - 60.0
-        else f"until {clock(res, end)}"
-    )
-    est = SUSPECT_ESTIMATE.get(suspect, "")
-    what = "drifted" if row["check"] == "drift" else "disagreed with the other instruments"
-    sentence = f"{what} from {clock(res, start, with_elapsed=True)} {until}"
-    if np.isfinite(value):
-        sign = value / 100.0
-        if suspect == "co2":
-            reads = 100.0 * abs(sign) / (1.0 + sign)
-            sentence += (
-                f": it reads about {reads:.1f} % {'low' if sign > 0 else 'high'}"
-                f" (lambda_carbon moved {value:+.1f} % against the other estimates)"
-            )
-        elif suspect == "o2":
-            sentence += (
-                f": it reads {'high' if sign > 0 else 'low'}"
-                f" (lambda_oxygen moved {value:+.1f} % against the other estimates)"
-            )
-        elif suspect == "air_mass_flow|fuel_mass_flow":
-            sentence += (
-                f": the air meter reads {'high' if sign > 0 else 'low'} or the fuel meter"
-                f" reads {'low' if sign > 0 else 'high'} by about {abs(value):.1f} %"
-                " (lambda alone cannot tell which)"
-            )
-        elif suspect == "lambda_sensor":
-            sentence += f": it reads {'lean' if sign > 0 else 'rich'} by {abs(value):.1f} %"
-        elif est:
-            sentence += f" ({est} moved {value:+.1f} % against the other estimates)"
-        else:
-            sentence += f" (size {value:+.1f} %)"
-    row_start = float(row["start_s"])
-    if row["check"] == "drift" and drift is not None and len(drift) and "kind" in drift:
-        hit = drift[
-            (drift.get("detected", pd.Series(1, index=drift.index)).astype(float) > 0)
-            & np.isclose(drift["onset_s"].to_numpy(dtype=np.float64), row_start, atol=1.0)
-        ]
-        if len(hit):
-            lead = hit.iloc[0]
-            rate = float(lead.get("rate_pct_per_h", np.nan))
-            kind = str(lead.get("kind", "")) or "drift"
-            show_rate = np.isfinite(rate) and kind != "step"
-            sentence += f"; {kind} shape" + (f", {rate:+.2f} %/h" if show_rate else "")
-            sentence += f" on {lead['residual']}"
-    return sentence
-
-
 def instrument_verdicts(res: ResultFile) -> list[Verdict]:
-    """One verdict per instrument from ``/flags/`` (and ``/drift/`` for the drift shape).
+    """The verdicts of the night, as the checks stage stored them in ``/verdicts``.
 
-    Order: suspects first, then instruments needing attention, then those without a finding.
-    The core instruments (CO2 and O2 analyzers, air and fuel meters, the lambda sensor when
-    logged) always get a line; others only when a flag names them.
+    A result written before that table existed is judged from its ``/flags`` by the same
+    engine (:func:`pipeline.checks.verdicts.judge`).
     """
-    flags = res.flags
-    drift = res.tables.get("drift")
-    core = ["co2", "o2", "air_mass_flow", "fuel_mass_flow"]
+    table = res.tables.get("verdicts")
+    if table is not None:
+        return verdicts_from_table(table)
+    core = list(CORE_INSTRUMENTS)
     if series(res, "lambda_sensor") is not None:
         core.append("lambda_sensor")
-    parts = _suspects(flags) if len(flags) else []
-    names = list(core)
-    raws = list(flags["suspect"].astype(str)) if len(flags) else []
-    for row_parts, _raw in zip(parts, raws, strict=True):
-        for p in row_parts:
-            if p not in names and p != "time":
-                names.append(p)
-    checks = flags["check"].astype(str).to_numpy() if len(flags) else np.array([])
-    sev = (
-        flags["severity"].astype(str).map(_SEVERITY_RANK).fillna(0).to_numpy()
-        if len(flags)
-        else np.array([])
-    )
-    out: list[Verdict] = []
-    for name in names:
-        label = INSTRUMENT_NAMES.get(name, name)
-        own = [i for i, p in enumerate(parts) if name in p or str(flags["suspect"].iloc[i]) == name]
-        fault = [i for i in own if checks[i] in FAULT_CHECKS]
-        other = [i for i in own if checks[i] not in FAULT_CHECKS + AVAILABILITY_CHECKS]
-        gaps = [i for i in own if checks[i] in AVAILABILITY_CHECKS]
-        if fault:
-            fault.sort(key=lambda i: (-sev[i], float(flags["start_s"].iloc[i])))
-            lead = flags.iloc[fault[0]]
-            shared = "|" in str(lead["suspect"]) and name != str(lead["suspect"])
-            status = "shared suspect" if shared else "suspect"
-            starts = flags["start_s"].to_numpy(dtype=np.float64)[fault]
-            ends = flags["end_s"].to_numpy(dtype=np.float64)[fault]
-            span = (float(starts.min()), float(ends.max()))
-            sentence = f"The {label} {_fault_sentence(res, lead, drift, span)}."
-            if shared:
-                others = [INSTRUMENT_NAMES.get(p, p) for p in str(lead["suspect"]).split("|")]
-                others = [o for o in others if o != label]
-                sentence += f" Shared suspect with the {' and the '.join(others)}."
-            if len(fault) > 1:
-                sentence += f" {len(fault) - 1} further fault flag(s) name it."
-            out.append(Verdict(name, label, status, sentence, fault + other))
-        elif other:
-            other.sort(key=lambda i: (-sev[i], float(flags["start_s"].iloc[i])))
-            lead = flags.iloc[other[0]]
-            msg = str(lead["message"]).strip() or str(lead["check"])
-            sentence = (
-                f"The {label} needs attention: {lead['check']} from "
-                f"{clock(res, float(lead['start_s']))} ({msg.rstrip('.')})."
-            )
-            out.append(Verdict(name, label, "attention", sentence, other))
-        else:
-            sentence = f"The {label} agrees with the other instruments: no fault found."
-            if gaps:
-                sentence += f" No data during {len(gaps)} flagged interval(s) (see flags)."
-            out.append(Verdict(name, label, "ok", sentence, gaps))
-    rank = {"suspect": 0, "shared suspect": 1, "attention": 2, "ok": 3}
-    out.sort(key=lambda v: rank.get(v.status, 4))
-    return out
+    t = res.timeseries["time"].to_numpy(dtype=np.float64)
+    return judge(res.flags, core, drift=res.tables.get("drift"), start_time=res.start_time,
+                 end_s=float(t[-1]) if t.size else float("nan"))
 
 
 def availability_notes(res: ResultFile) -> list[str]:

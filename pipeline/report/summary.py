@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 
 from ..atomic import atomic_path
+from ..checks.verdicts import headline
 from ..result import ResultFile, provenance
 from . import reportdata as rd
 
@@ -68,17 +69,6 @@ def build_summary(
                 "message": str(row["message"]),
             }
         )
-    suspects = [v for v in verdicts if v.status in ("suspect", "shared suspect")]
-    if suspects and all(v.status == "shared suspect" for v in suspects):
-        headline = (
-            "Suspect: " + " or ".join(v.name for v in suspects) + " (the data cannot tell which)."
-        )
-    elif suspects:
-        headline = "Suspect: " + ", ".join(v.name for v in suspects) + "."
-    elif any(v.status == "attention" for v in verdicts):
-        headline = "No instrument suspect; some need attention."
-    else:
-        headline = "All instruments agree: no instrument is suspect."
     return _clean(
         {
             "schema": SCHEMA,
@@ -90,8 +80,9 @@ def build_summary(
             "source_sha256": res.attrs.get("source_sha256"),
             "tool_version": res.attrs.get("tool_version"),
             "result_file": res.path.name if res.path else None,
-            "headline": headline,
-            "verdicts": [v.as_dict() for v in verdicts],
+            "headline": headline(verdicts),
+            # "sentence" is the evidence, under the key of summary schema 1
+            "verdicts": [{**v.as_dict(), "sentence": v.evidence} for v in verdicts],
             "availability": rd.availability_notes(res),
             "flags": flags,
             "key_numbers": rd.key_numbers(res, pts),

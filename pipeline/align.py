@@ -18,14 +18,17 @@ otherwise the configured delay (``[sampling] analyzer_delay_s``) or the document
 from __future__ import annotations
 
 import json
+from collections.abc import Mapping
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from ..data import with_columns
-from .intervals import mask_runs, median_step
-from .settings import resolve_settings
+from .checks.intervals import mask_runs, median_step
+from .checks.settings import CheckSettings, resolve_settings
+from .data import with_columns
+from .quantities import GASES
 
 #: Part of the cross-correlation maximum above which the peak's centre is taken.
 PEAK_FRACTION = 0.8
@@ -230,10 +233,31 @@ def shift_earlier(time: np.ndarray, values: np.ndarray, delay_s: float) -> np.nd
     return out
 
 
+@dataclass(frozen=True)
+class Alignment:
+    """What the alignment stage found: the delay applied [s], how it was found
+    (``cross-correlation`` | ``configured`` | ``default``) and every attribute of the
+    ``/alignment`` group (:func:`align_analyzers`)."""
+
+    delay_s: float
+    method: str
+    attrs: dict[str, Any]
+
+
+def align(
+    frame: pd.DataFrame, settings: CheckSettings
+) -> tuple[pd.DataFrame, Alignment]:
+    """The alignment stage: every logged analyzer channel shifted by the night's transport
+    delay (:func:`align_analyzers`; the configured ``analyzer_delay_s`` is the fallback)."""
+    gases = [g for g in GASES if g in frame]
+    out, attrs = align_analyzers(frame, gases, settings, settings.analyzer_delay_s)
+    return out, Alignment(float(attrs["analyzer_delay_s"]), str(attrs["method"]), attrs)
+
+
 def align_analyzers(
     frame: pd.DataFrame,
     gas_columns: list[str],
-    settings: dict,
+    settings: CheckSettings | Mapping[str, Any],
     fallback_delay_s: float | None,
 ) -> tuple[pd.DataFrame, dict[str, Any]]:
     """Estimate the analyzer transport delay and shift the gas channels earlier by it.
@@ -243,7 +267,7 @@ def align_analyzers(
     frame: ingest output, float64 ``time`` [s] and canonical columns (fuel_mass_flow,
         air_mass_flow [kg/h], gases [mol/mol], ...).
     gas_columns: the analyzer channels to shift (``lambda_sensor`` is fast and never shifted).
-    settings: the ``[checks]`` table (alignment_* keys override the defaults).
+    settings: the checks settings (alignment_* thresholds) or the ``[checks]`` table.
     fallback_delay_s: ``[sampling] analyzer_delay_s`` when configured, else None (then
         ``default_analyzer_delay_s`` is the fallback).
 
