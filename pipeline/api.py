@@ -226,9 +226,11 @@ def process_to_files(
     *,
     plots: bool = True,
     progress: Callable[[str], None] = _noop,
+    write_threads: int | None = None,
 ) -> NightOutcome:
     """Process one night and write ``OUT/<run stem>.h5`` (atomically), its figures and its
-    summary; ``progress`` is called with each stage name of :data:`STAGES`."""
+    summary; ``progress`` is called with each stage name of :data:`STAGES`;
+    ``write_threads``: see :func:`pipeline.report.hdf5.write_result`."""
     from .report import render_report
     from .report.hdf5 import stored_series, write_result
 
@@ -237,7 +239,7 @@ def process_to_files(
     out_dir.mkdir(parents=True, exist_ok=True)
     result = process_run(run_path, config, progress=progress)
     progress("writing")
-    h5 = write_result(out_dir / f"{run_stem(run_path)}.h5", result)
+    h5 = write_result(out_dir / f"{run_stem(run_path)}.h5", result, threads=write_threads)
     progress("report")
     # Figures and summary are rebuilt from the result file alone (its time series taken from
     # memory, where they are exactly the values just written).

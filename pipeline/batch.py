@@ -110,19 +110,15 @@ def process_night(
     force: bool = False,
     debug: bool = False,
     progress: Callable[[str], None] | None = None,
-    figure_processes: int | None = None,
+    write_threads: int | None = None,
 ) -> NightReport:
     """Process one night into ``out_dir``; never raises (the report carries the failure).
 
     A top-level function so that process pools (fork, spawn or forkserver) and Dask workers
     can run it. ``progress`` (in-process use only) receives the stage names;
-    ``figure_processes`` sets :data:`pipeline.report.render.FIGURE_PROCESSES` of the
-    process it runs in (1 in pool and cluster workers, whose CPUs are shared out already).
+    ``write_threads``: threads that compress the result file's chunks (None: one per CPU,
+    at most 4; pool workers get their share of the CPUs).
     """
-    if figure_processes is not None:
-        from .report import render
-
-        render.FIGURE_PROCESSES = figure_processes
     from . import __version__
     from .api import process_to_files, run_stem
     from .config import load_config
@@ -142,7 +138,8 @@ def process_night(
             rep.lines = [f"{path.name} -> {result}  (skipped: {rep.message})"]
             return rep
         outcome = process_to_files(
-            path, cfg, out_dir, plots=plots, **({"progress": progress} if progress else {})
+            path, cfg, out_dir, plots=plots, write_threads=write_threads,
+            **({"progress": progress} if progress else {}),
         )
         res = outcome.result
         rep.status, rep.result_file = "processed", str(outcome.result_file)
@@ -206,12 +203,10 @@ def _limit_threads(threads: int) -> None:
     thread per CPU (pyarrow's reader, the HDF5 chunk encoder), which oversubscribes them."""
     import pyarrow
 
-    from .report import hdf5
     from .runtime import tune_allocator
 
     tune_allocator()
     pyarrow.set_cpu_count(threads)
-    hdf5.WRITE_THREADS = threads
 
 
 #: Modules the worker processes start with already imported (forkserver preload), so a
@@ -274,16 +269,23 @@ def run_batch(
             continue
         seen[stem] = run
         todo.append(run)
-    args = [(str(r), str(config_path), str(out_dir), plots, force, debug) for r in todo]
     if executor is None and jobs <= 1 and not scheduler:
-        for a in args:
-            yield process_night(*a)
+        for r in todo:
+            yield process_night(str(r), str(config_path), str(out_dir), plots, force, debug)
         return
+    # Absolute paths: a worker (a Dask worker above all) runs in a directory of its own; the
+    # files must be visible to every worker under these paths.
+    args = [
+        (str(Path(r).resolve()), str(Path(config_path).resolve()),
+         str(Path(out_dir).resolve()), plots, force, debug)
+        for r in todo
+    ]
     own = executor is None
     ex = executor if executor is not None else make_executor(jobs, scheduler)
+    threads = None if scheduler else max(1, _cpu_count() // max(1, jobs))
     try:
         futures: dict[Future[NightReport], str] = {
-            ex.submit(process_night, *a, figure_processes=1): a[0] for a in args
+            ex.submit(process_night, *a, write_threads=threads): a[0] for a in args
         }
         for fut in as_completed(futures):
             try:
@@ -293,7 +295,19 @@ def run_batch(
                                   message=f"{futures[fut]}: worker failed ({exc}).")
     finally:
         if own:
-            ex.shutdown(wait=True, cancel_futures=True)
+            _shutdown(ex)
+
+
+def _shutdown(ex: Executor) -> None:
+    """Stop an executor this module made: a process pool with its pending work cancelled; a
+    Dask executor (whose ``shutdown`` takes no ``cancel_futures``) and then its client."""
+    client = getattr(ex, "_client", None)
+    if isinstance(ex, ProcessPoolExecutor):
+        ex.shutdown(wait=True, cancel_futures=True)
+        return
+    ex.shutdown(wait=True)
+    if client is not None:
+        client.close()
 
 
 def write_index(reports: Sequence[NightReport], out_dir: Path) -> tuple[Path, Path]:

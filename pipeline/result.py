@@ -132,9 +132,7 @@ def read_result(
         ts = f["timeseries"]
         names = ["time"] + [n for n in ts if n != "time" and isinstance(ts[n], h5py.Dataset)]
         if series is None:
-            from .report.hdf5 import read_series  # threaded chunk decoding, same values
-
-            arrays = read_series(ts, names)
+            arrays = {n: ts[n][()] for n in names}
         else:
             n_rows = ts["time"].shape[0]
             wrong = [n for n in names if n not in series or len(series[n]) != n_rows]

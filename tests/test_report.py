@@ -349,10 +349,8 @@ def test_report_from_memory_equals_report_from_file(night: Path, tmp_path: Path)
     # again; the ResultFile and the summary must be the same either way.
     import h5py
 
-    from pipeline.report.hdf5 import read_series
-
     with h5py.File(night) as f:
-        series = read_series(f["timeseries"], list(f["timeseries"]))
+        series = {n: f["timeseries"][n][()] for n in f["timeseries"]}
     a, b = read_result(night), read_result(night, series=series)
     pd.testing.assert_frame_equal(a.timeseries, b.timeseries)
     assert a.series_attrs == b.series_attrs and a.attrs == b.attrs
@@ -397,52 +395,20 @@ def test_pdf_falls_back_to_an_embedded_font_outside_windows_1252(tmp_path: Path)
 
 
 # ---------------------------------------------------------------------------------------
-# figures drawn in two processes
+# a broken figure
 # ---------------------------------------------------------------------------------------
-@pytest.mark.skipif(not hasattr(__import__("os"), "fork"), reason="needs os.fork (POSIX)")
-def test_two_processes_draw_the_same_figures(
+def test_a_broken_figure_is_a_skip_with_its_reason(
     night: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    from pipeline.report import render
-
-    res = read_result(night)
-    for d in ("one", "two"):
-        (tmp_path / d).mkdir()
-    monkeypatch.setattr(render, "FIGURE_PROCESSES", 1)
-    one, skipped_one = render.render_figures(res, tmp_path / "one", "n")
-    monkeypatch.setattr(render, "FIGURE_PROCESSES", 2)
-    two, skipped_two = render.render_figures(read_result(night), tmp_path / "two", "n")
-    assert [p.name for p in one] == [p.name for p in two] and len(one) == 7
-    assert skipped_one == skipped_two
-    for a, b in zip(one, two, strict=True):
-        assert a.read_bytes() == b.read_bytes(), a.name  # byte for byte
-    assert not list((tmp_path / "two").glob("*.tmp"))
-
-
-@pytest.mark.skipif(not hasattr(__import__("os"), "fork"), reason="needs os.fork (POSIX)")
-def test_second_process_failures_are_reported_or_redrawn(
-    night: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
-) -> None:
+    # (Figures were drawn in a forked second process until the fork was removed from
+    # library code; this part of the former two-process tests still holds.)
     from pipeline.report import emissions, render
 
-    for d in ("a", "b"):
-        (tmp_path / d).mkdir()
-    monkeypatch.setattr(render, "FIGURE_PROCESSES", 2)
-    # a figure failing in the child: a skip with its reason and a warning here
     def broken(*_args: object) -> list[Path]:
         raise RuntimeError("boom")
 
     monkeypatch.setattr(emissions, "figure", broken)
     with pytest.warns(RuntimeWarning, match="boom"):
-        paths, skipped = render.render_figures(read_result(night), tmp_path / "a", "n")
+        paths, skipped = render.render_figures(read_result(night), tmp_path, "n")
     assert "internal error: boom" in skipped[emissions.NAME] and len(paths) == 6
-    monkeypatch.undo()
-    # a child that dies without an outcome: its figures are drawn here
-    monkeypatch.setattr(render, "FIGURE_PROCESSES", 2)
-    class Dead:
-        def wait(self) -> None:
-            return None
-
-    monkeypatch.setattr(render, "_draw_in_child", lambda *a: Dead())
-    paths, skipped = render.render_figures(read_result(night), tmp_path / "b", "n")
-    assert len(paths) == 7 and skipped == {}
+    assert not list(tmp_path.glob("*.tmp"))

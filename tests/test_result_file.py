@@ -365,35 +365,6 @@ def test_non_numeric_series_raises(tmp_path: Path) -> None:
     assert list(tmp_path.iterdir()) == []
 
 
-def test_read_series_matches_hdf5_decoding(tmp_path: Path) -> None:
-    """read_series (threaded chunk decoding) gives exactly what h5py/HDF5 decode, for the
-    writer's own layout and for other layouts (which it leaves to HDF5)."""
-    n = 150_001
-    res = _long_result(n)
-    out = write_result(tmp_path / "r.h5", res)
-    other = tmp_path / "other.h5"
-    x = np.random.default_rng(5).normal(size=n)
-    with h5py.File(other, "w") as g:
-        g.create_dataset("plain", data=x)
-        g.create_dataset("gzip_only", data=x, chunks=(10_000,), compression="gzip")
-        g.create_dataset("hdf5_shuffle_gzip", data=x, chunks=(65536,), compression="gzip",
-                         shuffle=True)
-        part = g.create_dataset("unwritten_chunks", shape=(n,), dtype="<f8", chunks=(65536,),
-                                compression="gzip", shuffle=True, fillvalue=np.nan)
-        part[:10] = x[:10]
-        g.create_dataset("float32", data=x.astype(np.float32), chunks=(65536,),
-                         compression="gzip", shuffle=True)
-    for path in (out, other):
-        with h5py.File(path, "r") as f:
-            grp = f["timeseries"] if "timeseries" in f else f
-            names = list(grp)
-            got = hdf5_mod.read_series(grp, names)
-            for name in names:
-                want = grp[name][()]
-                assert got[name].dtype == want.dtype, name
-                assert np.array_equal(got[name], want, equal_nan=True), name
-
-
 def test_columns_frame_equals_the_pandas_constructor_without_copying() -> None:
     # The no-copy frame (pandas' block API) must be the frame pandas itself builds.
     from pipeline.data import columns_frame, with_columns
@@ -415,7 +386,7 @@ def test_columns_frame_equals_the_pandas_constructor_without_copying() -> None:
 
 def test_stored_series_are_the_values_in_the_file(tmp_path: Path) -> None:
     # What process_to_files hands to the report from memory equals what the file holds.
-    from pipeline.report.hdf5 import read_series, stored_series
+    from pipeline.report.hdf5 import stored_series
 
     n = 70000  # more than one chunk
     t = np.arange(n, dtype=float)
@@ -429,7 +400,7 @@ def test_stored_series_are_the_values_in_the_file(tmp_path: Path) -> None:
     path = write_result(tmp_path / "r.h5", res)
     mem = stored_series(res)
     with h5py.File(path) as f:
-        disk = read_series(f["timeseries"], list(f["timeseries"]))
+        disk = {n: f["timeseries"][n][()] for n in f["timeseries"]}  # h5py decodes
     assert set(mem) == set(disk)
     for name in mem:
         np.testing.assert_array_equal(mem[name], disk[name])

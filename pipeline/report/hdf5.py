@@ -71,8 +71,8 @@ GZIP_LEVEL = 4
 ISAL_LEVEL = 1
 ISAL_RECORDED_LEVEL = 1
 
-#: Threads that encode time-series chunks (None: one per available CPU, at most 4).
-WRITE_THREADS: int | None = None
+#: Most threads that encode time-series chunks by default (one per available CPU up to this).
+MAX_WRITE_THREADS = 4
 
 #: Units and long names of the flags table columns.
 FLAG_COLUMN_ATTRS: dict[str, dict[str, str]] = {
@@ -162,7 +162,7 @@ def _series_attrs(name: str, given: Mapping[str, Any] | None) -> dict[str, Any]:
     return attrs
 
 
-def _write_timeseries(f: h5py.File, result: ProcessResult) -> None:
+def _write_timeseries(f: h5py.File, result: ProcessResult, threads: int | None) -> None:
     series = result.series
     if "time" not in series.columns:
         raise ValueError("ProcessResult.series has no 'time' column")
@@ -198,7 +198,7 @@ def _write_timeseries(f: h5py.File, result: ProcessResult) -> None:
         datasets[name] = ds
         arrays[name] = _series_array(series[name], name)
     if n > 0:
-        _write_chunks(datasets, arrays, storage["chunks"][0])
+        _write_chunks(datasets, arrays, storage["chunks"][0], threads)
     tm = datasets["time"]
     tm.make_scale("time")
     for name in names[1:]:
@@ -263,7 +263,10 @@ def _encode_chunk(values: np.ndarray, chunk: int, deflate: Callable[[Any], bytes
 
 
 def _write_chunks(
-    datasets: Mapping[str, h5py.Dataset], arrays: Mapping[str, np.ndarray], chunk: int
+    datasets: Mapping[str, h5py.Dataset],
+    arrays: Mapping[str, np.ndarray],
+    chunk: int,
+    threads: int | None = None,
 ) -> None:
     """Encode every chunk in a thread pool and store it with ``write_direct_chunk``.
 
@@ -272,7 +275,7 @@ def _write_chunks(
     memory held is a few MB whatever the length of the night.
     """
     deflate = _deflate_encoder()
-    threads = WRITE_THREADS or min(4, _cpu_count())
+    threads = threads or min(MAX_WRITE_THREADS, _cpu_count())
     jobs: Iterator[tuple[h5py.Dataset, int, np.ndarray]] = (
         (datasets[name], i, arr[i : i + chunk])
         for name, arr in arrays.items()
@@ -296,71 +299,6 @@ def _write_chunks(
             for _, _, fut in pending:
                 fut.cancel()
             raise
-
-
-def _inflate_decoder() -> Callable[[bytes], bytes]:
-    """The zlib-stream decoder: ISA-L when installed, else the standard library."""
-    try:
-        from isal import isal_zlib
-    except ImportError:
-        return zlib.decompress
-    return isal_zlib.decompress
-
-
-def _fast_readable(ds: h5py.Dataset) -> bool:
-    """True for the layout :func:`write_result` gives a series: 1-D little-endian float64,
-    chunked, filters exactly shuffle then deflate."""
-    if ds.ndim != 1 or ds.dtype != np.dtype("<f8") or ds.chunks is None or not ds.size:
-        return False
-    dcpl = ds.id.get_create_plist()
-    filters = [dcpl.get_filter(i)[0] for i in range(dcpl.get_nfilters())]
-    return filters == [h5py.h5z.FILTER_SHUFFLE, h5py.h5z.FILTER_DEFLATE]
-
-
-def _decode_chunk(raw: bytes, inflate: Callable[[bytes], bytes], chunk: int) -> np.ndarray:
-    plain = np.frombuffer(inflate(raw), dtype=np.uint8)
-    if plain.size != 8 * chunk:
-        raise ValueError("chunk of unexpected size")
-    return np.ascontiguousarray(plain.reshape(8, chunk).T).view("<f8").ravel()
-
-
-def read_series(group: h5py.Group, names: list[str]) -> dict[str, np.ndarray]:
-    """The 1-D float64 datasets ``names`` of ``group`` as arrays, decoded in threads.
-
-    For the series :func:`write_result` writes (shuffle + deflate chunks), the stored chunks are
-    read with ``read_direct_chunk`` and inflated and un-shuffled in a thread pool, several
-    times faster than ``ds[()]`` (whose decoding runs in one thread under h5py's lock). Any
-    other layout, a chunk stored with a filter skipped, or any surprise falls back to
-    ``ds[()]``; the values are the same either way.
-    """
-    out: dict[str, np.ndarray] = {}
-    inflate = _inflate_decoder()
-    threads = WRITE_THREADS or min(4, _cpu_count())
-    with ThreadPoolExecutor(max_workers=threads) as pool:
-        for name in names:
-            ds = group[name]
-            out[name] = _read_one(ds, pool, inflate) if _fast_readable(ds) else ds[()]
-    return out
-
-
-def _read_one(
-    ds: h5py.Dataset, pool: ThreadPoolExecutor, inflate: Callable[[bytes], bytes]
-) -> np.ndarray:
-    n, chunk = ds.shape[0], ds.chunks[0]
-    try:
-        futures = []
-        for off in range(0, n, chunk):
-            mask, raw = ds.id.read_direct_chunk((off,))
-            if mask != 0:
-                return ds[()]
-            futures.append(pool.submit(_decode_chunk, raw, inflate, chunk))
-        values = np.empty(n, dtype=np.float64)
-        for k, fut in enumerate(futures):
-            block = fut.result()
-            values[k * chunk : min(n, (k + 1) * chunk)] = block[: min(chunk, n - k * chunk)]
-        return values
-    except Exception:  # unallocated chunk, odd filter options, ...: let HDF5 decode it
-        return ds[()]
 
 
 def _is_missing(v: Any) -> bool:
@@ -436,7 +374,7 @@ def _write_flags(f: h5py.File, flags: pd.DataFrame | None) -> None:
     _write_table(f, "flags", out, FLAG_COLUMN_ATTRS)
 
 
-def _fill(f: h5py.File, result: ProcessResult) -> None:
+def _fill(f: h5py.File, result: ProcessResult, threads: int | None) -> None:
     root_attrs = dict(result.attrs)
     root_attrs["Conventions"] = CONVENTIONS
     if root_attrs.get("start_time_utc"):
@@ -448,7 +386,7 @@ def _fill(f: h5py.File, result: ProcessResult) -> None:
 
         root_attrs["tool_version"] = __version__
     _set_attrs(f, root_attrs)
-    _write_timeseries(f, result)
+    _write_timeseries(f, result, threads)
     _write_flags(f, result.flags)
     for name, table in result.tables.items():
         if name in ("timeseries", "flags"):
@@ -459,8 +397,11 @@ def _fill(f: h5py.File, result: ProcessResult) -> None:
         _set_attrs(g, attrs)
 
 
-def write_result(path: Path, result: ProcessResult) -> Path:
+def write_result(path: Path, result: ProcessResult, *, threads: int | None = None) -> Path:
     """Write ``result`` to the HDF5 file ``path`` atomically and return the path.
+
+    ``threads``: threads that compress the time-series chunks (None: one per CPU this process
+    may use, at most :data:`MAX_WRITE_THREADS`).
 
     The file is built under a temporary name (``.<name>.*.tmp``) in the same directory,
     closed and renamed with :func:`os.replace`, so an existing result at ``path`` is only
@@ -475,5 +416,5 @@ def write_result(path: Path, result: ProcessResult) -> Path:
     with atomic_path(path) as tmp:
         # The temporary file is ours alone: no HDF5 file locking (fails on some NFS mounts).
         with h5py.File(tmp, "w", libver=LIBVER, track_order=True, locking=False) as f:
-            _fill(f, result)
+            _fill(f, result, threads)
     return path

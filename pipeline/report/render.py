@@ -9,8 +9,6 @@ figure is listed with its reason in the summary, never drawn as an empty axes.
 
 from __future__ import annotations
 
-import os
-import sys
 import warnings
 from collections.abc import Mapping, Sequence
 from importlib import import_module
@@ -28,27 +26,6 @@ FIGURE_MODULES = (
     "fuel",
     "emissions",
 )
-
-
-#: Processes that draw the figures of one night: None = two on Linux where this process may
-#: run on two or more CPUs, else one (macOS and Windows: forking a process that has loaded
-#: system frameworks or has no fork at all is not safe there). ``--jobs``/``--scheduler``
-#: workers use one (their CPUs are shared out between nights already).
-FIGURE_PROCESSES: int | None = None
-
-#: The figures a second process draws (about half of the drawing time; the rest are drawn
-#: here meanwhile).
-SECOND_PROCESS_FIGURES = ("overview", "steady_table", "emissions")
-
-
-def figure_processes() -> int:
-    """Processes :func:`render_figures` will use (see :data:`FIGURE_PROCESSES`)."""
-    if FIGURE_PROCESSES is not None:
-        return max(1, int(FIGURE_PROCESSES))
-    if not sys.platform.startswith("linux") or not hasattr(os, "fork"):
-        return 1
-    cpus = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
-    return 2 if (cpus or 1) >= 2 else 1
 
 
 def _draw(
@@ -73,111 +50,10 @@ def _draw(
     return written, skipped, notes
 
 
-class _ChildDrawing:
-    """A forked process drawing some figures (see :func:`_draw_in_child`)."""
-
-    def __init__(self, pid: int, read_fd: int) -> None:
-        self.pid, self.read_fd = pid, read_fd
-
-    def abort(self) -> None:
-        """Interrupt the child (it removes its temporary files) and wait for it."""
-        import signal
-
-        try:
-            os.close(self.read_fd)
-        except OSError:
-            pass
-        try:
-            os.kill(self.pid, signal.SIGINT)
-            os.waitpid(self.pid, 0)
-        except (ProcessLookupError, ChildProcessError):
-            pass
-
-    def wait(self) -> tuple[dict[str, list[Path]], dict[str, str], list[str]] | None:
-        """The child's outcome once it has finished; None when it died without one."""
-        import json
-
-        try:
-            with os.fdopen(self.read_fd, "rb") as fh:
-                data = fh.read()
-            _, status = os.waitpid(self.pid, 0)
-        except BaseException:
-            self.abort()
-            raise
-        if status != 0 or not data:
-            return None
-        out = json.loads(data)
-        written = {k: [Path(p) for p in v] for k, v in out["written"].items()}
-        return written, dict(out["skipped"]), list(out["notes"])
-
-
-def _draw_in_child(
-    mod_names: Sequence[str], res: object, out_dir: Path, stem: str
-) -> _ChildDrawing:
-    """Fork a process that draws ``mod_names``.
-
-    The child shares the parent's memory copy-on-write (the result is not copied or
-    pickled), writes its figures atomically like the parent, sends back only the outcome as
-    JSON through a pipe, and leaves with ``os._exit`` (no atexit handlers, no buffers
-    flushed twice). Interrupted (Ctrl-C reaches the whole process group, or the parent passes
-    its interrupt on), it removes its temporary files and exits.
-    """
-    import json
-
-    read_fd, write_fd = os.pipe()
-    pid = os.fork()
-    if pid == 0:  # the child
-        code = 1
-        try:
-            os.close(read_fd)
-            written, skipped, notes = _draw(mod_names, res, out_dir, stem)
-            payload = {"written": {k: [str(p) for p in v] for k, v in written.items()},
-                       "skipped": skipped, "notes": notes}
-            with os.fdopen(write_fd, "wb") as fh:
-                fh.write(json.dumps(payload).encode("utf-8"))
-            code = 0
-        except BaseException:  # noqa: BLE001 - the parent redraws what is missing
-            pass
-        finally:
-            os._exit(code)
-    os.close(write_fd)
-    return _ChildDrawing(pid, read_fd)
-
-
 def render_figures(res: object, out_dir: Path, stem: str) -> tuple[list[Path], dict[str, str]]:
     """Every figure that can be made: (paths written, {figure name: reason skipped}), in the
-    order of :data:`FIGURE_MODULES`.
-
-    With two processes (:func:`figure_processes`), a forked child draws
-    :data:`SECOND_PROCESS_FIGURES` while this process draws the others; the figures are the
-    same, byte for byte. Should the child fail, its figures are drawn here after all.
-    """
-    second = [m for m in FIGURE_MODULES if m in SECOND_PROCESS_FIGURES]
-    first = [m for m in FIGURE_MODULES if m not in second]
-    if figure_processes() >= 2 and second and first:
-        from . import reportdata as rd
-
-        # Data several figures share, computed once before the fork so both processes have it
-        # (a result that lacks them is met again, and reported, by the figures themselves).
-        try:
-            rd.steady_point_stats(res)
-            rd.steady_blocks(res)
-        except Exception:  # noqa: BLE001
-            pass
-        child = _draw_in_child(second, res, out_dir, stem)
-        try:
-            written, skipped, notes = _draw(first, res, out_dir, stem)
-        except BaseException:  # e.g. Ctrl-C sent to this process only
-            child.abort()
-            raise
-        outcome = child.wait()
-        if outcome is None:
-            outcome = _draw(second, res, out_dir, stem)
-        written.update(outcome[0])
-        skipped.update(outcome[1])
-        notes += outcome[2]
-    else:
-        written, skipped, notes = _draw(FIGURE_MODULES, res, out_dir, stem)
+    order of :data:`FIGURE_MODULES`, drawn one after the other in this process."""
+    written, skipped, notes = _draw(FIGURE_MODULES, res, out_dir, stem)
     for note in notes:
         warnings.warn(note, RuntimeWarning, stacklevel=2)
     paths = [p for m in FIGURE_MODULES for p in written.get(m, [])]
