@@ -161,3 +161,20 @@ class ProcessResult:
     group_attrs: dict[str, dict[str, Any]] = field(default_factory=dict)
     attrs: dict[str, Any] = field(default_factory=dict)
     summary: list[str] = field(default_factory=list)
+
+    @property
+    def timeseries(self) -> pd.DataFrame:
+        """The time series under the name a read result file uses (the same frame as
+        :attr:`series`; :func:`pipeline.result.result_in_memory` gives the full file
+        layout)."""
+        return self.series
+
+    @property
+    def units(self) -> dict[str, str]:
+        """``units`` per series, as :attr:`pipeline.result.ResultFile.units`."""
+        return {n: str(a.get("units", "")) for n, a in self.series_attrs.items()}
+
+    @property
+    def long_names(self) -> dict[str, str]:
+        """``long_name`` per series, as :attr:`pipeline.result.ResultFile.long_names`."""
+        return {n: str(a.get("long_name", "")) for n, a in self.series_attrs.items()}

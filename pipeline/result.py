@@ -18,7 +18,7 @@ import h5py
 import numpy as np
 import pandas as pd
 
-from .data import FLAG_COLUMNS, columns_frame, empty_flags
+from .data import FLAG_COLUMNS, ProcessResult, columns_frame, empty_flags
 
 #: Attributes HDF5 manages itself for dimension scales (not part of our metadata).
 _SCALE_ATTRS = frozenset({"CLASS", "NAME", "DIMENSION_LIST", "REFERENCE_LIST", "_Netcdf4Dimid"})
@@ -182,6 +182,40 @@ def read_result(
         start_time=start_time,
         path=path,
     )
+
+
+def result_in_memory(result: ProcessResult) -> ResultFile:
+    """A :class:`ResultFile` of a result not written yet: the same layout and values
+    :func:`read_result` gives after :func:`pipeline.report.hdf5.write_result` (every series
+    as float64, infinities as NaN), so a notebook can plot or summarise a
+    :func:`pipeline.process_run` result without a file."""
+    columns = {}
+    for name in result.series.columns:
+        v = np.asarray(result.series[name].to_numpy(), dtype=np.float64)
+        columns[str(name)] = np.where(np.isinf(v), np.nan, v) if np.isinf(v).any() else v
+    timeseries = columns_frame(columns)
+    series_attrs = {n: dict(result.series_attrs.get(n, {})) for n in columns}
+    start = result.attrs.get("start_time_utc")
+    start_time = parse_time_units(f"{_SINCE}{start}") if start else None
+    if "time" in series_attrs:
+        series_attrs["time"].setdefault("units", f"{_SINCE}{start}" if start else "s")
+    return ResultFile(
+        timeseries=timeseries,
+        units={n: str(a.get("units", "")) for n, a in series_attrs.items()},
+        long_names={n: str(a.get("long_name", "")) for n, a in series_attrs.items()},
+        series_attrs=series_attrs,
+        flags=result.flags.copy() if len(result.flags) else empty_flags(),
+        tables={k: v.copy() for k, v in result.tables.items()},
+        group_attrs={k: dict(v) for k, v in result.group_attrs.items()},
+        attrs=dict(result.attrs),
+        start_time=start_time,
+        path=None,
+    )
+
+
+def as_result(res: ResultFile | ProcessResult) -> ResultFile:
+    """``res`` itself when read from a file, else :func:`result_in_memory` of it."""
+    return res if isinstance(res, ResultFile) else result_in_memory(res)
 
 
 def provenance(res: ResultFile) -> tuple[str, str]:

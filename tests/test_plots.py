@@ -211,7 +211,8 @@ def _night(tmp_path: Path, columns: tuple[str, ...], start: str | None) -> Path:
 def test_overview_renders_from_read_back_result(tmp_path: Path, start: str | None) -> None:
     cols = ("lambda_flow", "lambda_carbon", "lambda_oxygen", "lambda_sensor")
     res = read_result(_night(tmp_path, cols, start))
-    out = plot_lambda_overview(res, tmp_path / "overview.png")
+    out = tmp_path / "overview.png"
+    plot_lambda_overview(res, out)
     img = mpimg.imread(out)
     assert img.shape[1] >= 1200
     assert img.shape[:2] == (960, 1600)
@@ -221,15 +222,16 @@ def test_overview_renders_from_read_back_result(tmp_path: Path, start: str | Non
 
 def test_overview_is_deterministic(tmp_path: Path) -> None:
     res = read_result(_night(tmp_path, ("lambda_flow", "lambda_carbon"), None))
-    a = plot_lambda_overview(res, tmp_path / "a.png").read_bytes()
-    b = plot_lambda_overview(res, tmp_path / "b.png").read_bytes()
-    assert a == b
+    plot_lambda_overview(res, tmp_path / "a.png")
+    plot_lambda_overview(res, tmp_path / "b.png")
+    assert (tmp_path / "a.png").read_bytes() == (tmp_path / "b.png").read_bytes()
 
 
 def test_overview_skips_absent_series(tmp_path: Path) -> None:
     res = read_result(_night(tmp_path, ("lambda_flow", "lambda_oxygen"), None))
     assert "lambda_sensor" not in res.timeseries
-    out = plot_lambda_overview(res, tmp_path / "two.png")
+    out = tmp_path / "two.png"
+    plot_lambda_overview(res, out)
     assert mpimg.imread(out).shape[1] >= 1200
 
 
@@ -241,5 +243,35 @@ def test_overview_without_any_estimate_or_flags(tmp_path: Path) -> None:
         flags=make_flags([]),
     )
     back = read_result(write_result(tmp_path / "r.h5", res))
-    out = plot_lambda_overview(back, tmp_path / "empty.png")
+    out = tmp_path / "empty.png"
+    plot_lambda_overview(back, out)
     assert mpimg.imread(out).shape[1] >= 1200
+
+
+def test_plots_take_an_in_memory_result_and_return_the_figure(tmp_path: Path) -> None:
+    # A notebook user plots a process_run result without writing a file: the same figure,
+    # pixel for pixel, as from the result file read back.
+    from matplotlib.figure import Figure
+
+    from pipeline.report.water import plot_water
+    from pipeline.result import result_in_memory
+
+    t = np.arange(0.0, 3600.0, 1.0)
+    mem = ProcessResult(
+        series=pd.DataFrame({"time": t, "lambda_flow": 1.5 + 0.01 * np.sin(t / 300),
+                             "exhaust_dewpoint": np.full(t.size, 45.0),
+                             "sample_line_temperature": 190.0 - 0.04 * t}),
+        series_attrs={"sample_line_temperature": {"units": "degC", "long_name": "line"}},
+        flags=make_flags([]),
+        attrs={"run_name": "notebook night", "start_time_utc": "2026-03-14T21:00:00Z",
+               "tool_version": "0.test"},
+    )
+    back = read_result(write_result(tmp_path / "r.h5", mem))
+    assert list(result_in_memory(mem).timeseries.columns) == list(back.timeseries.columns)
+    assert result_in_memory(mem).start_time == back.start_time
+    fig = plot_lambda_overview(mem)
+    assert isinstance(fig, Figure)
+    a, b = tmp_path / "mem.png", tmp_path / "file.png"
+    plot_water(mem, a)
+    plot_water(back, b)
+    np.testing.assert_array_equal(mpimg.imread(a), mpimg.imread(b))

@@ -15,12 +15,14 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 from matplotlib.colors import Normalize
+from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-from ..result import ResultFile
+from ..data import ProcessResult
+from ..result import ResultFile, as_result
 from . import reportdata as rd
-from .plots import TIME_CMAP, FigureSkipped, night_x, report_figure, save, time_colorbar
+from .plots import TIME_CMAP, FigureSkipped, finish, night_x, report_figure, time_colorbar
 
 #: File name part of this figure.
 NAME = "consistency"
@@ -57,8 +59,14 @@ def consistency_data(res: ResultFile) -> tuple[pd.DataFrame, list[str], float]:
     return blocks.reset_index(drop=True), present, tol
 
 
-def plot_consistency(res: ResultFile, out_png: Path) -> Path:
-    """Write the consistency figure (1600 x 800 px); see the module docstring."""
+def plot_consistency(res: ResultFile | ProcessResult, out_png: Path | None = None) -> Figure:
+    """Write the consistency figure (1600 x 800 px); see the module docstring.
+
+    Returns the drawn :class:`~matplotlib.figure.Figure` (written as PNG to ``out_png`` when
+    given); ``res`` is a read result file or an in-memory result of
+    :func:`pipeline.process_run`.
+    """
+    res = as_result(res)
     blocks, present, tol = consistency_data(res)
     conv, _, _ = night_x(res)
     c = conv(blocks["t_s"].to_numpy(dtype=np.float64))
@@ -119,9 +127,11 @@ def plot_consistency(res: ResultFile, out_png: Path) -> Path:
         handles.append(Patch(facecolor="#d9d9d9", label=f"\u00b1{100 * tol:g} % tolerance"))
         body.legend(handles=handles, loc="outside lower center", ncols=len(handles),
                     fontsize=7.5)
-        return save(body, out_png)
+        return finish(body, out_png)
 
 
 def figure(res: ResultFile, out_dir: Path, stem: str) -> list[Path]:
     """Render this figure for the report (raises FigureSkipped when it cannot be made)."""
-    return [plot_consistency(res, Path(out_dir) / f"{stem}_{NAME}.png")]
+    path = Path(out_dir) / f"{stem}_{NAME}.png"
+    plot_consistency(res, path)
+    return [path]

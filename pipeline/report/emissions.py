@@ -13,11 +13,13 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from matplotlib.figure import Figure
 from matplotlib.patches import Patch
 
-from ..result import ResultFile
+from ..data import ProcessResult
+from ..result import ResultFile, as_result
 from . import reportdata as rd
-from .plots import FigureSkipped, report_figure, save
+from .plots import FigureSkipped, finish, report_figure
 
 #: File name part of this figure.
 NAME = "emissions"
@@ -47,8 +49,14 @@ def emission_data(res: ResultFile) -> tuple[pd.DataFrame, list[str]]:
     return pts, names
 
 
-def plot_emissions(res: ResultFile, out_png: Path) -> Path:
-    """Write the emissions figure (1600 px wide, one panel per species)."""
+def plot_emissions(res: ResultFile | ProcessResult, out_png: Path | None = None) -> Figure:
+    """Write the emissions figure (1600 px wide, one panel per species).
+
+    Returns the drawn :class:`~matplotlib.figure.Figure` (written as PNG to ``out_png`` when
+    given); ``res`` is a read result file or an in-memory result of
+    :func:`pipeline.process_run`.
+    """
+    res = as_result(res)
     pts, names = emission_data(res)
     k = np.arange(len(pts))
     flagged = np.array([v != "ok" for v in pts["verdict"]])
@@ -85,9 +93,11 @@ def plot_emissions(res: ResultFile, out_png: Path) -> Path:
                    Patch(facecolor="white", edgecolor="#222222", hatch=HATCH,
                          label="under a fault flag (suspect value)")]
         body.legend(handles=handles, loc="outside lower center", ncols=2, fontsize=7.5)
-        return save(body, out_png)
+        return finish(body, out_png)
 
 
 def figure(res: ResultFile, out_dir: Path, stem: str) -> list[Path]:
     """Render this figure for the report (raises FigureSkipped when it cannot be made)."""
-    return [plot_emissions(res, Path(out_dir) / f"{stem}_{NAME}.png")]
+    path = Path(out_dir) / f"{stem}_{NAME}.png"
+    plot_emissions(res, path)
+    return [path]

@@ -13,18 +13,20 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 from matplotlib.colors import Normalize
+from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-from ..result import ResultFile
+from ..data import ProcessResult
+from ..result import ResultFile, as_result
 from . import reportdata as rd
 from .plots import (
     TIME_CMAP,
     FigureSkipped,
+    finish,
     format_time_axis,
     night_x,
     report_figure,
-    save,
     time_colorbar,
 )
 
@@ -52,8 +54,14 @@ def fuel_data(res: ResultFile) -> tuple[pd.DataFrame, float]:
     return b, tol
 
 
-def plot_fuel(res: ResultFile, out_png: Path) -> Path:
-    """Write the fuel-flow figure (1600 x 800 px)."""
+def plot_fuel(res: ResultFile | ProcessResult, out_png: Path | None = None) -> Figure:
+    """Write the fuel-flow figure (1600 x 800 px).
+
+    Returns the drawn :class:`~matplotlib.figure.Figure` (written as PNG to ``out_png`` when
+    given); ``res`` is a read result file or an in-memory result of
+    :func:`pipeline.process_run`.
+    """
+    res = as_result(res)
     b, tol = fuel_data(res)
     conv, _, _ = night_x(res)
     c = conv(b["t_s"].to_numpy(dtype=np.float64))
@@ -93,9 +101,11 @@ def plot_fuel(res: ResultFile, out_png: Path) -> Path:
             Patch(facecolor="#d9d9d9", label=f"\u00b1{100 * tol:g} % tolerance"),
         ]
         body.legend(handles=handles, loc="outside lower center", ncols=2, fontsize=7.5)
-        return save(body, out_png)
+        return finish(body, out_png)
 
 
 def figure(res: ResultFile, out_dir: Path, stem: str) -> list[Path]:
     """Render this figure for the report (raises FigureSkipped when it cannot be made)."""
-    return [plot_fuel(res, Path(out_dir) / f"{stem}_{NAME}.png")]
+    path = Path(out_dir) / f"{stem}_{NAME}.png"
+    plot_fuel(res, path)
+    return [path]

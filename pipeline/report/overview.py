@@ -12,10 +12,12 @@ import numpy as np
 import pandas as pd
 from matplotlib.axes import Axes
 from matplotlib.collections import PolyCollection
+from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-from ..result import ResultFile
+from ..data import ProcessResult
+from ..result import ResultFile, as_result
 from . import reportdata as rd
 from .plots import (
     BINS_PER_PIXEL,
@@ -29,11 +31,11 @@ from .plots import (
     bin_mean,
     envelope,
     envelope_bins,
+    finish,
     format_time_axis,
     night_x,
     report_figure,
     robust_limits,
-    save,
 )
 
 #: File name part of this figure.
@@ -252,7 +254,7 @@ def _steady_rug(ax: Axes, res: ResultFile, conv: Any, x_range: tuple[float, floa
     return [Patch(facecolor="#333333", label="steady point (no. as in table)")]
 
 
-def plot_lambda_overview(res: ResultFile, out_png: Path) -> Path:
+def plot_lambda_overview(res: ResultFile | ProcessResult, out_png: Path | None = None) -> Figure:
     """The night's lambda estimates against time, with flagged intervals; writes a PNG.
 
     Draws ``lambda_flow``, ``lambda_carbon``, ``lambda_oxygen`` and ``lambda_sensor`` (each
@@ -262,9 +264,13 @@ def plot_lambda_overview(res: ResultFile, out_png: Path) -> Path:
     by severity and labelled "check: suspect" in a strip above the plot. Steady points are a
     numbered bar along the bottom. The y range follows robust percentiles; samples beyond it
     are marked with triangles at the axis edge. The x axis is clock time (UTC) when the start
-    of the run is known, else hours since start. Returns ``out_png`` (1600 x 960 px).
+    of the run is known, else hours since start. 1600 x 960 px.
+
+    Returns the drawn :class:`~matplotlib.figure.Figure` (written as PNG to ``out_png`` when
+    given); ``res`` is a read result file or an in-memory result of
+    :func:`pipeline.process_run`.
     """
-    out_png = Path(out_png)
+    res = as_result(res)
     flags = res.flags
     labelled = flags[~flags["check"].astype(str).isin(list(SPAN_STYLE))] if len(flags) else flags
     with report_figure(res, "Lambda estimates over the night", FIGSIZE[1]) as body:
@@ -325,12 +331,14 @@ def plot_lambda_overview(res: ResultFile, out_png: Path) -> Path:
         ax.set_ylabel("lambda (\u2013)")
         if handles:
             body.legend(handles=handles, loc="outside lower center", ncols=3, fontsize=7.5)
-        return save(body, out_png)
+        return finish(body, out_png)
 
 
 def figure(res: ResultFile, out_dir: Path, stem: str) -> list[Path]:
     """Render this figure for the report (see :func:`plot_lambda_overview`)."""
-    return [plot_lambda_overview(res, Path(out_dir) / f"{stem}_{NAME}.png")]
+    path = Path(out_dir) / f"{stem}_{NAME}.png"
+    plot_lambda_overview(res, path)
+    return [path]
 
 
 __all__ = ["NAME", "figure", "plot_lambda_overview"]

@@ -162,13 +162,20 @@ def report_figure(
 
 
 def save(body: SubFigure | Figure, out_png: Path) -> Path:
-    """Write the figure of ``body`` as PNG without a software tag (byte-reproducible).
+    """Write the figure of ``body`` as PNG (:func:`finish`); return the path."""
+    out_png = Path(out_png)
+    finish(body, out_png)
+    return out_png
+
+
+def finish(body: SubFigure | Figure, out_png: Path | None = None) -> Figure:
+    """Lay out and draw the figure of ``body``; write it as PNG without a software tag
+    (byte-reproducible) when ``out_png`` is given; return the :class:`Figure`.
 
     The same picture as ``savefig``, faster: the constrained layout is computed once and the
     figure drawn once (``savefig`` adds a full draw pass for the layout), and the PNG is
     written by :func:`write_png` (fast zlib, no filter search).
     """
-    out_png = Path(out_png)
     fig = body.figure
     engine = fig.get_layout_engine()
     if engine is not None:
@@ -178,9 +185,10 @@ def save(body: SubFigure | Figure, out_png: Path) -> Path:
     if not isinstance(canvas, FigureCanvasAgg):
         canvas = FigureCanvasAgg(fig)
     canvas.draw()
-    with atomic_path(out_png) as tmp:
-        write_png(tmp, np.asarray(canvas.buffer_rgba()), fig.dpi)
-    return out_png
+    if out_png is not None:
+        with atomic_path(Path(out_png)) as tmp:
+            write_png(tmp, np.asarray(canvas.buffer_rgba()), fig.dpi)
+    return fig
 
 
 #: zlib level of the figure PNGs. Level 3 without row filters writes a report figure about

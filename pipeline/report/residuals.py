@@ -14,10 +14,12 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-from ..result import ResultFile
+from ..data import ProcessResult
+from ..result import ResultFile, as_result
 from . import reportdata as rd
 from .plots import (
     DPI,
@@ -25,10 +27,10 @@ from .plots import (
     FigureSkipped,
     envelope,
     envelope_bins,
+    finish,
     format_time_axis,
     night_x,
     report_figure,
-    save,
 )
 
 #: File name part of this figure.
@@ -77,8 +79,14 @@ def drift_row(drift: pd.DataFrame | None, name: str) -> dict[str, float | str | 
     }
 
 
-def plot_residuals(res: ResultFile, out_png: Path) -> Path:
-    """Write the residual-trend figure (1600 px wide, 2 columns of panels)."""
+def plot_residuals(res: ResultFile | ProcessResult, out_png: Path | None = None) -> Figure:
+    """Write the residual-trend figure (1600 px wide, 2 columns of panels).
+
+    Returns the drawn :class:`~matplotlib.figure.Figure` (written as PNG to ``out_png`` when
+    given); ``res`` is a read result file or an in-memory result of
+    :func:`pipeline.process_run`.
+    """
+    res = as_result(res)
     names, drift = residual_data(res)
     conv, _, _ = night_x(res)
     t = res.timeseries["time"].to_numpy(dtype=np.float64)
@@ -180,9 +188,11 @@ def plot_residuals(res: ResultFile, out_png: Path) -> Path:
                 Line2D([], [], color=DRIFT, linewidth=1.2, label="drift onset / size (arrow)"),
             ]
         body.legend(handles=handles, loc="outside lower center", ncols=3, fontsize=7.5)
-        return save(body, out_png)
+        return finish(body, out_png)
 
 
 def figure(res: ResultFile, out_dir: Path, stem: str) -> list[Path]:
     """Render this figure for the report (raises FigureSkipped when it cannot be made)."""
-    return [plot_residuals(res, Path(out_dir) / f"{stem}_{NAME}.png")]
+    path = Path(out_dir) / f"{stem}_{NAME}.png"
+    plot_residuals(res, path)
+    return [path]

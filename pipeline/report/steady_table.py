@@ -18,7 +18,8 @@ from matplotlib.axes import Axes
 from matplotlib.collections import PolyCollection
 from matplotlib.patches import Rectangle
 
-from ..result import ResultFile
+from ..data import ProcessResult
+from ..result import ResultFile, as_result
 from . import reportdata as rd
 from .plots import FigureSkipped, report_figure, save
 
@@ -152,8 +153,10 @@ def _draw_table(
                     in_layout=False)
 
 
-def plot_steady_table(res: ResultFile, out_png: Path) -> list[Path]:
-    """Write the table image(s); returns every path written (``out_png``, then ``_2`` ...)."""
+def plot_steady_table(res: ResultFile | ProcessResult, out_png: Path) -> list[Path]:
+    """Write the table image(s); returns every path written (``out_png``, then ``_2`` ...).
+    ``res``: a read result file or an in-memory result of :func:`pipeline.process_run`."""
+    res = as_result(res)
     pts = table_data(res)
     cols = [c for c in COLUMNS if c[1] in pts and (c[1] == "verdict" or pts[c[1]].notna().any())]
     tol, tol_s, _ = rd.tolerance(res)

@@ -12,10 +12,12 @@ from __future__ import annotations
 from pathlib import Path
 
 import numpy as np
+from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-from ..result import ResultFile
+from ..data import ProcessResult
+from ..result import ResultFile, as_result
 from . import reportdata as rd
 from .plots import (
     BINS_PER_PIXEL,
@@ -25,10 +27,10 @@ from .plots import (
     bin_mean,
     envelope,
     envelope_bins,
+    finish,
     format_time_axis,
     night_x,
     report_figure,
-    save,
 )
 
 #: File name part of this figure.
@@ -75,8 +77,14 @@ def _trace(ax, x, v, n_bins, color, ls):  # noqa: ANN001, ANN202 - local drawing
     ax.plot(mx, my, color=color, linestyle=ls, linewidth=1.4)
 
 
-def plot_water(res: ResultFile, out_png: Path) -> Path:
-    """Write the water figure (1600 x 960 px)."""
+def plot_water(res: ResultFile | ProcessResult, out_png: Path | None = None) -> Figure:
+    """Write the water figure (1600 x 960 px).
+
+    Returns the drawn :class:`~matplotlib.figure.Figure` (written as PNG to ``out_png`` when
+    given); ``res`` is a read result file or an in-memory result of
+    :func:`pipeline.process_run`.
+    """
+    res = as_result(res)
     t, dew, margin = water_data(res)
     guide = configured_margin(res)
     line = dew + margin
@@ -116,9 +124,11 @@ def plot_water(res: ResultFile, out_png: Path) -> Path:
         if len(risk):
             handles.append(Patch(facecolor="#f4a582", alpha=0.4, label="condensation_risk flag"))
         body.legend(handles=handles, loc="outside lower center", ncols=3, fontsize=7.5)
-        return save(body, out_png)
+        return finish(body, out_png)
 
 
 def figure(res: ResultFile, out_dir: Path, stem: str) -> list[Path]:
     """Render this figure for the report (raises FigureSkipped when it cannot be made)."""
-    return [plot_water(res, Path(out_dir) / f"{stem}_{NAME}.png")]
+    path = Path(out_dir) / f"{stem}_{NAME}.png"
+    plot_water(res, path)
+    return [path]
