@@ -19,7 +19,7 @@ two ``dynoqc`` variants back to back, so machine load affects them alike):
 - scaling: 1x, 4x and 10x the rows (12, 48 and 120 h at 10 Hz), time per row;
 - ``--jobs 2`` against ``--jobs 1`` on four nights.
 
-Nights are generated with :mod:`pipeline.simulate` (the Cell B3 sample scenario of
+Nights are generated with :mod:`pipeline.testing.simulate` (the Cell B3 sample scenario of
 ``sample_runs/make_sample_runs.py``) into a temporary folder. Speed targets live here and in
 the README, never in the tests. The script prints Markdown tables for the README plus a
 description of the machine, and can write the raw numbers as JSON (``--json``).
@@ -172,10 +172,8 @@ def read_subprocess(path: Path, skip: int) -> float:
 
 def make_csv(path: Path, hours: float, rate_hz: float, seed_offset: int = 0) -> dict[str, Any]:
     """A synthetic night (Cell B3 scenario) of ``hours`` at ``rate_hz`` written to ``path``."""
-    sys.path.insert(0, str(REPO / "sample_runs"))
-    from make_sample_runs import METADATA, cell_b3_scenario
-
-    from pipeline.simulate import make_night, write_csv
+    from pipeline.testing.cell_b3 import METADATA, cell_b3_scenario
+    from pipeline.testing.simulate import make_night, write_csv
 
     base = cell_b3_scenario()
     sc = dataclasses.replace(

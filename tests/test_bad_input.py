@@ -24,12 +24,12 @@ from typing import Any
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from conftest import ROOT
 
 from pipeline.cli import main
 from pipeline.result import read_result
-from pipeline.simulate import make_night, write_csv
+from pipeline.testing.simulate import make_night, write_csv
 
-ROOT = Path(__file__).resolve().parents[1]
 CONFIG_TEXT = (ROOT / "configs" / "cell_b3.toml").read_text(encoding="utf-8")
 CONFIG_NO_INPUT = re.sub(r"\[input\][^\[]*", "", CONFIG_TEXT)
 DYNOQC = Path(sys.executable).with_name("dynoqc")
@@ -42,8 +42,7 @@ COLUMNS = ["time", "engine_speed", "engine_torque", "fuel_flow", "air_flow", "co
 @pytest.fixture(scope="module")
 def night(tmp_path_factory: pytest.TempPathFactory) -> str:
     """The text of a clean 1 h night (with one 20 s logger dropout), as the cell logs it."""
-    sys.path.insert(0, str(ROOT / "sample_runs"))
-    from make_sample_runs import METADATA, cell_b3_scenario
+    from pipeline.testing.cell_b3 import METADATA, cell_b3_scenario
 
     sc = dataclasses.replace(cell_b3_scenario(), duration_h=1.0, dropouts=[(0.5, 20.0)],
                              faults=[], cal_windows=[])

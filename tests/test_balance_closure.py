@@ -1,8 +1,8 @@
 """Closure: the forward model's exhaust fed to the inverse returns the known lambda and water.
 
-The forward model (pipeline.simulate) is element-exact stoichiometry written independently of
-the inverse (it never imports pipeline.balance). Property-based over lambda, fuel H/C and
-O/C, intake humidity, CO/THC/NO amounts and analyzer basis (hypothesis).
+The forward model (pipeline.testing.simulate) is element-exact stoichiometry written
+independently of the inverse (it never imports pipeline.balance). Property-based over
+lambda, fuel H/C and O/C, intake humidity, CO/THC/NO amounts and analyzer basis (hypothesis).
 """
 
 import numpy as np
@@ -14,7 +14,7 @@ from pipeline.balance.flows import lambda_from_flows
 from pipeline.balance.humidity import dry_air_from_wet
 from pipeline.balance.oxygen import lambda_brettschneider
 from pipeline.fuels import Fuel
-from pipeline.simulate import dry_air_molar_mass, exhaust_composition
+from pipeline.testing.simulate import dry_air_molar_mass, exhaust_composition
 
 
 @settings(max_examples=150, deadline=None)

@@ -6,12 +6,12 @@ from pathlib import Path
 
 import pytest
 from click.testing import CliRunner
+from conftest import ROOT
 
 from pipeline.batch import NightReport, expand_inputs, process_night, run_batch, write_index
 from pipeline.cli import main
 from pipeline.errors import ConfigError
 
-ROOT = Path(__file__).resolve().parents[1]
 SAMPLE = ROOT / "sample_runs" / "cell_b3_2026-03-14.csv.gz"
 CONFIG = ROOT / "configs" / "cell_b3.toml"
 

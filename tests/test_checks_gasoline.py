@@ -9,13 +9,14 @@ import dataclasses
 
 import numpy as np
 import pytest
+from conftest import SAMPLE_CONFIG
 
 from pipeline.api import process_run
 from pipeline.config import load_config
 from pipeline.fuels import load_presets
-from pipeline.simulate import Fault, OperatingPoint, Scenario, make_night, write_csv
+from pipeline.testing.simulate import Fault, OperatingPoint, Scenario, make_night, write_csv
 
-CONFIG = load_config(__import__("pathlib").Path(__file__).parents[1] / "configs" / "cell_b3.toml")
+CONFIG = load_config(SAMPLE_CONFIG)
 
 MAP = [  # (speed, torque, lambda, fuel kg/h, hold s, ramp s): closed loop at 1, rich at 3500
     OperatingPoint(1500, 50, 1.0, 3.0, 1500, 60, co_per_c=0.004, thc_per_c=0.002,

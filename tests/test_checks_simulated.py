@@ -1,4 +1,4 @@
-"""Checks end to end on nights from the forward model (pipeline.simulate) through ingest,
+"""Checks end to end on nights from the forward model (pipeline.testing.simulate) through ingest,
 alignment and balance (pipeline.api.process_run): injected faults must be found with the
 right suspect and onset, clean nights must stay quiet. Invented scenarios (fault injection).
 """
@@ -7,13 +7,14 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from conftest import SAMPLE_CONFIG
 
 from pipeline.api import process_run
 from pipeline.config import load_config
 from pipeline.fuels import load_presets
-from pipeline.simulate import Fault, OperatingPoint, Scenario, make_night, write_csv
+from pipeline.testing.simulate import Fault, OperatingPoint, Scenario, make_night, write_csv
 
-CONFIG = load_config(__import__("pathlib").Path(__file__).parents[1] / "configs" / "cell_b3.toml")
+CONFIG = load_config(SAMPLE_CONFIG)
 
 MAP = [
     OperatingPoint(1000, 30, 4.2, 1.19, 1200, 60),

@@ -7,11 +7,11 @@ from pathlib import Path
 
 import pytest
 from click.testing import CliRunner
+from conftest import ROOT
 
 from pipeline.cli import main
 from pipeline.config import load_config
 
-ROOT = Path(__file__).resolve().parents[1]
 SAMPLE = ROOT / "sample_runs" / "cell_b3_2026-03-14.csv.gz"
 CONFIG = (ROOT / "configs" / "cell_b3.toml").read_text(encoding="utf-8")
 

@@ -4,11 +4,10 @@ import tomllib
 from pathlib import Path
 
 import pytest
+from conftest import ROOT
 
 from pipeline.config import load_config, parse_config
 from pipeline.errors import ConfigError
-
-ROOT = Path(__file__).resolve().parents[1]
 
 
 def test_sample_config_loads_and_resolved_toml_round_trips():

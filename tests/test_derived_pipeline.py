@@ -12,7 +12,7 @@ from pipeline.balance.driftcor import apply_drift_correction
 from pipeline.balance.tables import emissions_table
 from pipeline.config import parse_config
 from pipeline.fuels import load_presets
-from pipeline.simulate import dry_air_molar_mass, exhaust_composition
+from pipeline.testing.simulate import dry_air_molar_mass, exhaust_composition
 
 
 def _config(fuel=None, **extra):

@@ -18,7 +18,7 @@ from pipeline.balance.emissions import (
     wet_fractions,
 )
 from pipeline.fuels import Fuel, load_presets
-from pipeline.simulate import dry_air_molar_mass, exhaust_composition
+from pipeline.testing.simulate import dry_air_molar_mass, exhaust_composition
 
 
 def test_exhaust_flow_from_intake_1065_656_example_inputs():

@@ -12,11 +12,11 @@ import h5py
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from conftest import ROOT
 
 import pipeline
 from pipeline.cli import main
 
-ROOT = Path(__file__).resolve().parents[1]
 SAMPLE = ROOT / "sample_runs" / "cell_b3_2026-03-14.csv.gz"
 CONFIG = ROOT / "configs" / "cell_b3.toml"
 FLAG_CHECKS = {"lambda_disagreement", "drift", "data_gap", "analyzer_not_sampling",
@@ -82,11 +82,9 @@ def test_sample_night_verdict_and_reader(sample_result):
 def test_clean_simulated_night_accuracy(tmp_path):
     # Forward model night without faults: median error on steady samples within the targets
     # (lambda_flow 0.5 %, lambda_carbon and lambda_oxygen 1 %; emission rates 2-5 %).
-    sys.path.insert(0, str(ROOT / "sample_runs"))
-    from make_sample_runs import METADATA, cell_b3_scenario
-
     from pipeline import constants as C
-    from pipeline.simulate import make_night, write_csv
+    from pipeline.testing.cell_b3 import METADATA, cell_b3_scenario
+    from pipeline.testing.simulate import make_night, write_csv
 
     sc = dataclasses.replace(cell_b3_scenario(), faults=[], duration_h=4.0, seed=7,
                              cal_windows=[], dropouts=[])
@@ -132,11 +130,8 @@ def test_results_do_not_depend_on_the_input_units(tmp_path):
     import pandas as pd
 
     from pipeline.config import parse_config
-
-    sys.path.insert(0, str(ROOT / "sample_runs"))
-    from make_sample_runs import METADATA, cell_b3_scenario
-
-    from pipeline.simulate import make_night, write_csv
+    from pipeline.testing.cell_b3 import METADATA, cell_b3_scenario
+    from pipeline.testing.simulate import make_night, write_csv
 
     sc = dataclasses.replace(cell_b3_scenario(), duration_h=3.0, cal_windows=[], dropouts=[])
     log, _ = make_night(sc)

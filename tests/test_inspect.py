@@ -8,12 +8,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from conftest import ROOT
 
 from pipeline.cli import main
 from pipeline.config import load_config
 from pipeline.inspect import ColumnInfo, inspect_run, propose_channels, tokens
 
-ROOT = Path(__file__).resolve().parents[1]
 SAMPLE = ROOT / "sample_runs" / "cell_b3_2026-03-14.csv.gz"
 CONFIG = ROOT / "configs" / "cell_b3.toml"
 

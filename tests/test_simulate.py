@@ -1,4 +1,4 @@
-"""Tests of the forward model (pipeline.simulate) against sources outside the project.
+"""Tests of the forward model (pipeline.testing.simulate) against sources outside the project.
 
 Sources named beside each check:
 - REFERENCES §8: computed test vectors Case A / Case B [D] (closure-checked against the
@@ -21,7 +21,7 @@ from scipy.optimize import brentq
 
 from pipeline import constants as C
 from pipeline.fuels import Fuel, load_presets
-from pipeline.simulate import (
+from pipeline.testing.simulate import (
     CalWindow,
     Fault,
     OperatingPoint,

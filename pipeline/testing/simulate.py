@@ -35,8 +35,8 @@ import pandas as pd
 from numpy.typing import ArrayLike
 from scipy.signal import lfilter
 
-from . import constants as C
-from .fuels import Fuel
+from .. import constants as C
+from ..fuels import Fuel
 
 #: Wet species returned by :func:`exhaust_composition` (mole fractions, THC on a C1 basis).
 SPECIES = ("co2", "co", "h2", "h2o", "o2", "n2", "ar", "thc", "no", "no2", "so2")
