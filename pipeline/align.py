@@ -25,10 +25,10 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .checks.intervals import mask_runs, median_step
 from .checks.settings import CheckSettings, resolve_settings
-from .data import with_columns
+from .checks.timebase import mask_runs, median_step
 from .quantities import GASES
+from .records import with_columns
 
 #: Part of the cross-correlation maximum above which the peak's centre is taken.
 PEAK_FRACTION = 0.8

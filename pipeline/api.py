@@ -1,6 +1,6 @@
 """The driver: one function per use, whose body is the list of stages.
 
-- :func:`process_run` returns a :class:`~pipeline.data.ProcessResult` without writing files
+- :func:`process_run` returns a :class:`~pipeline.records.ProcessResult` without writing files
   (for notebooks and tests).
 - :func:`process_to_files` is what ``dynoqc process`` does for one night: the result file
   ``OUT/<run stem>.h5`` and the PNG figures beside it.
@@ -24,9 +24,9 @@ from .balance.tables import emissions_table
 from .checks import CheckSettings, ChecksResult, run_checks
 from .checks.verdicts import console_lines
 from .config import Config, load_config
-from .data import ProcessResult, RunData, columns_frame
 from .ingest import read_run
 from .quantities import DERIVED, GASES, INPUTS
+from .records import ProcessResult, RunData, columns_frame
 
 
 def run_stem(path: Path) -> str:

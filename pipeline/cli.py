@@ -174,7 +174,7 @@ def fuels() -> None:
 def inspect(run: Path, config_path: Path | None, as_json: bool, write_path: Path | None,
             debug: bool) -> None:
     """Show the columns, units and value ranges of RUN and how a config maps them."""
-    from .inspect import inspect_run
+    from .inspection import inspect_run
 
     for line in _guarded(debug, lambda: inspect_run(run, config_path, as_json, write_path)):
         click.echo(line)

@@ -18,7 +18,7 @@ import h5py
 import numpy as np
 import pandas as pd
 
-from .data import FLAG_COLUMNS, ProcessResult, columns_frame, empty_flags
+from .records import FLAG_COLUMNS, ProcessResult, columns_frame, empty_flags
 
 #: Attributes HDF5 manages itself for dimension scales (not part of our metadata).
 _SCALE_ATTRS = frozenset({"CLASS", "NAME", "DIMENSION_LIST", "REFERENCE_LIST", "_Netcdf4Dimid"})

@@ -20,9 +20,9 @@ from pipeline.align import align_analyzers, cross_correlation_delay
 from pipeline.checks import run_checks
 from pipeline.checks.attribution import attribute
 from pipeline.checks.drift import cusum_alarm
-from pipeline.checks.intervals import hysteresis, mask_runs
 from pipeline.checks.residuals import carbon_fuel_flow, relative_residual
 from pipeline.checks.settings import DEFAULTS, resolve_settings
+from pipeline.checks.timebase import hysteresis, mask_runs
 from pipeline.checks.verdicts import console_lines
 from pipeline.constants import MAD_TO_SIGMA
 from pipeline.errors import ConfigError

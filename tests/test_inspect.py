@@ -12,7 +12,7 @@ from conftest import ROOT
 
 from pipeline.cli import main
 from pipeline.config import load_config
-from pipeline.inspect import ColumnInfo, inspect_run, propose_channels, tokens
+from pipeline.inspection import ColumnInfo, inspect_run, propose_channels, tokens
 
 SAMPLE = ROOT / "sample_runs" / "cell_b3_2026-03-14.csv.gz"
 CONFIG = ROOT / "configs" / "cell_b3.toml"

@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pipeline.data import ProcessResult, make_flags
+from pipeline.records import ProcessResult, make_flags
 from pipeline.report.hdf5 import write_result
 from pipeline.report.overview import plot_lambda_overview
 from pipeline.report.plots import (

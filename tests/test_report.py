@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pipeline.data import ProcessResult, make_flags
+from pipeline.records import ProcessResult, make_flags
 from pipeline.report import reportdata as rd
 from pipeline.report.consistency import consistency_data
 from pipeline.report.emissions import emission_data

@@ -12,7 +12,7 @@ import pytest
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
-from pipeline.data import empty_flags, make_flags
+from pipeline.records import empty_flags, make_flags
 from pipeline.report import reportdata as rd
 from pipeline.report.plots import format_time_axis
 from pipeline.report.steady_table import plot_steady_table

@@ -11,7 +11,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pipeline.data import FLAG_COLUMNS, ProcessResult, empty_flags, make_flags
+from pipeline.records import FLAG_COLUMNS, ProcessResult, empty_flags, make_flags
 from pipeline.report import hdf5 as hdf5_mod
 from pipeline.report.hdf5 import write_result
 from pipeline.result import parse_time_units, read_result
@@ -367,7 +367,7 @@ def test_non_numeric_series_raises(tmp_path: Path) -> None:
 
 def test_columns_frame_equals_the_pandas_constructor_without_copying() -> None:
     # The no-copy frame (pandas' block API) must be the frame pandas itself builds.
-    from pipeline.data import columns_frame, with_columns
+    from pipeline.records import columns_frame, with_columns
 
     rng = np.random.default_rng(3)
     cols = {"time": np.arange(1000.0), "a": rng.normal(size=1000), "ok": rng.random(1000) > 0.5,

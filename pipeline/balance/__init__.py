@@ -14,10 +14,10 @@ import pandas as pd
 
 from .. import constants as C
 from ..config import Config
-from ..data import columns_frame
 from ..errors import ConfigError
 from ..fuels import Fuel
-from ..intervals import runs
+from ..records import columns_frame
+from ..spans import runs
 from .chemical import ChemicalBalance, chemical_balance
 from .driftcor import apply_drift_correction
 from .emissions import (

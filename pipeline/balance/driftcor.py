@@ -20,8 +20,8 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
-from ..data import with_columns
-from ..intervals import runs
+from ..records import with_columns
+from ..spans import runs
 
 if TYPE_CHECKING:
     from ..config import Config

@@ -19,18 +19,18 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..data import Flag, make_flags
 from ..instruments import CORE_INSTRUMENTS
 from ..quantities import GASES
+from ..records import Flag, make_flags
 from . import attribution as attr_mod
 from .availability import condensation_flags, gap_flags, method_invalid_flags, not_sampling_flags
 from .disagreement import disagreement_intervals, merge_events
 from .drift import DriftResult, block_samples, detect_drift, drift_table, refine_step_onset
-from .intervals import format_elapsed, make_clock
 from .quality import out_of_range_flags, time_irregular_flags
 from .residuals import ESTIMATE_COLUMNS, carbon_fuel_flow, compute_residuals, relative_residual
 from .settings import CheckSettings, resolve_settings, thresholds_used
 from .steady import steady_mask, steady_points_table
+from .timebase import format_elapsed, make_clock
 from .verdicts import Verdict, judge, verdicts_table
 
 __all__ = ["CheckSettings", "ChecksResult", "run_checks"]

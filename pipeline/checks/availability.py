@@ -14,8 +14,8 @@ import numpy as np
 import pandas as pd
 
 from ..balance import STATE_ANALYZER_MODE, STATE_LOW_CARBON, STATE_SAMPLING
-from ..data import Flag
-from ..intervals import mask_to_intervals, runs
+from ..records import Flag
+from ..spans import mask_to_intervals, runs
 
 #: Why analyzers do not see exhaust, by the strongest ``sampling_state`` code in a stretch.
 _NOT_SAMPLING_WHY = {

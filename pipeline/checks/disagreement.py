@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .intervals import (
+from .timebase import (
     hysteresis,
     mask_runs,
     median_may_reach,

@@ -32,7 +32,7 @@ import numpy as np
 import pandas as pd
 
 from ..constants import MAD_TO_SIGMA
-from ..data import columns_frame
+from ..records import columns_frame
 
 
 def block_samples(

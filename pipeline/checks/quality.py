@@ -9,7 +9,7 @@ import pandas as pd
 
 from ..constants import MAD_TO_SIGMA
 from ..quantities import GASES
-from .intervals import mask_runs, median_may_reach, median_step, merge_runs, rolling_median_at
+from .timebase import mask_runs, median_may_reach, median_step, merge_runs, rolling_median_at
 
 
 def _percent(x: float) -> str:

@@ -14,8 +14,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from ..intervals import group_mean_std
-from .intervals import mask_runs, median_step
+from ..spans import group_mean_std
+from .timebase import mask_runs, median_step
 
 #: Quantity -> settings key of its relative standard-deviation limit.
 STEADY_QUANTITIES = {

@@ -30,7 +30,7 @@ from ..instruments import (
     SUSPECT_ESTIMATE,
     label,
 )
-from .intervals import format_elapsed, make_clock
+from .timebase import format_elapsed, make_clock
 
 __all__ = ["VERDICT_COLUMNS", "Verdict", "console_lines", "headline", "judge",
            "verdicts_from_table", "verdicts_table"]

@@ -14,9 +14,9 @@ from contextlib import contextmanager
 from pathlib import Path
 
 from ..config import Config, InputOptions
-from ..data import RunData
 from ..errors import InputDataError
-from .csv import read_csv_run
+from ..records import RunData
+from .delimited import read_csv_run
 from .sniff import MISSING_MARKERS, Layout, sniff
 from .table import PHYSICAL_LIMITS, Source, monotone_time, split_name_unit
 
@@ -137,6 +137,6 @@ def open_source(path: Path, options: InputOptions | None = None) -> Iterator[Sou
         finally:
             mdf.close()
     else:
-        from .csv import csv_source
+        from .delimited import csv_source
 
         yield csv_source(path, sniff(path, options))

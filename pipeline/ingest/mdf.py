@@ -35,8 +35,8 @@ import numpy as np
 import pandas as pd
 
 from ..config import Config, InputOptions
-from ..data import RunData
 from ..errors import ConfigError, InputDataError
+from ..records import RunData
 from .table import Source, build_run
 
 #: Raster points beyond this are refused (a raster too fine for the file's time span).

@@ -17,8 +17,8 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from ..config import Config
-from ..data import RunData
 from ..errors import InputDataError
+from ..records import RunData
 from .table import Source, build_run
 
 #: Schema metadata keys written by pandas/Arrow themselves (not the logger's metadata).

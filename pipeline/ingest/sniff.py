@@ -3,7 +3,7 @@
 Plain Python on a small sample (the first :data:`SAMPLE_LINES` lines): encoding, delimiter,
 decimal mark, comment and metadata lines, the names row, an optional units row and the line
 where the data start. The bulk of the file is then parsed by the fast reader in
-:mod:`pipeline.ingest.csv` with these settings.
+:mod:`pipeline.ingest.delimited` with these settings.
 """
 
 from __future__ import annotations

@@ -2,7 +2,7 @@
 
 Each reader (:mod:`.csv`, :mod:`.parquet`, :mod:`.mdf`) describes its file as a
 :class:`Source` (column names, the units the file gives, metadata, a start time and a loader
-for the raw columns); :func:`build_run` turns that into a :class:`~pipeline.data.RunData` in
+for the raw columns); :func:`build_run` turns that into a :class:`~pipeline.records.RunData` in
 canonical units, with every dropped row and every unusable cell counted in the metadata.
 """
 
@@ -20,9 +20,9 @@ import numpy as np
 import pandas as pd
 
 from ..config import UNIT_FROM_FILE, Channel, Config
-from ..data import RunData, RunMeta, columns_frame
 from ..errors import ConfigError, InputDataError
 from ..quantities import INPUTS
+from ..records import RunData, RunMeta, columns_frame
 from ..units import Conversion, conversion, is_known_unit
 from .sniff import ISO_OFFSET_RE, ISO_RE
 

@@ -48,8 +48,8 @@ import numpy as np
 import pandas as pd
 
 from ..atomic import atomic_path
-from ..data import FLAG_COLUMNS, ProcessResult
 from ..quantities import describe
+from ..records import FLAG_COLUMNS, ProcessResult
 
 #: CF conventions version declared in the root attributes.
 CONVENTIONS = "CF-1.10"

@@ -21,13 +21,13 @@ import numpy as np
 import pandas as pd
 
 from ..balance.emissions import carbon_balance_error_rate
-from ..checks.intervals import make_clock
 from ..checks.settings import DEFAULTS
+from ..checks.timebase import make_clock
 from ..checks.verdicts import Verdict, judge, verdicts_from_table
 from ..constants import X_CO2_AIR_DRY
 from ..instruments import AVAILABILITY_CHECKS, CORE_INSTRUMENTS, FAULT_CHECKS, RESIDUAL_SERIES
-from ..intervals import group_mean_std
 from ..result import ResultFile
+from ..spans import group_mean_std
 
 #: Length of the blocks [s] used to show the spread inside steady points in scatter plots.
 BLOCK_S = 300.0

@@ -18,7 +18,7 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-from ..data import ProcessResult
+from ..records import ProcessResult
 from ..result import ResultFile, as_result
 from . import reportdata as rd
 from .plots import (

@@ -18,7 +18,7 @@ from matplotlib.axes import Axes
 from matplotlib.collections import PolyCollection
 from matplotlib.patches import Rectangle
 
-from ..data import ProcessResult
+from ..records import ProcessResult
 from ..result import ResultFile, as_result
 from . import reportdata as rd
 from .plots import FigureSkipped, report_figure, save

@@ -18,8 +18,8 @@ import numpy as np
 import pandas as pd
 
 from ..config import Config
-from ..data import RunData
 from ..errors import InputDataError
+from ..records import RunData
 from .sniff import MISSING_MARKERS, Layout, sniff
 from .table import Source, build_run
 

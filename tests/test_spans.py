@@ -3,7 +3,7 @@
 import numpy as np
 
 from pipeline.checks.availability import gap_flags
-from pipeline.intervals import mask_to_intervals, runs
+from pipeline.spans import mask_to_intervals, runs
 
 
 def test_runs_and_intervals():
@@ -37,7 +37,7 @@ def test_group_mean_std_equals_pandas_groupby() -> None:
     # samples outside every group (-1), a group of one sample (std NaN) and an empty group.
     import pandas as pd
 
-    from pipeline.intervals import group_mean_std
+    from pipeline.spans import group_mean_std
 
     rng = np.random.default_rng(11)
     n, k = 5000, 6

@@ -8,7 +8,7 @@ from datetime import UTC, datetime, timedelta
 import numpy as np
 import pandas as pd
 
-from ..intervals import runs
+from ..spans import runs
 
 
 def mask_runs(mask: np.ndarray) -> np.ndarray:
