@@ -87,6 +87,8 @@ class Channel:
     carbon_number: float = 1.0  # THC: carbon atoms of the reported basis
     format: str | None = None  # time: "seconds" (default) or "iso8601"
     range: float | None = None  # analyzer full-scale range, in `unit`
+    #: False when the config left the unit implicit (canonical, or the file's own unit).
+    unit_given: bool = field(default=True, compare=False)
 
 
 @dataclass(frozen=True)
@@ -209,7 +211,8 @@ class Config:
                 fuel[key] = getattr(f, key)
 
         def channel(ch: Channel) -> dict[str, Any]:
-            d = {k: v for k, v in asdict(ch).items() if v is not None and k != "quantity"}
+            d = {k: v for k, v in asdict(ch).items()
+                 if v is not None and k not in ("quantity", "unit_given")}
             if ch.quantity != "thc":
                 d.pop("carbon_number", None)
             return d
@@ -400,7 +403,7 @@ def _parse_channel(name: str, table: Any, path: Path) -> Channel:
         column = table["column"]
     if not isinstance(unit, str):
         raise ConfigError(f"{path}: {where} unit must be text, e.g. unit = \"{q.unit}\".")
-    return Channel(name, unit, column, value, basis, carbon_number, fmt, rng)
+    return Channel(name, unit, column, value, basis, carbon_number, fmt, rng, "unit" in table)
 
 
 def _parse_methods(table: Any, path: Path) -> tuple[str, ...]:

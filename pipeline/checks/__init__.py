@@ -98,7 +98,7 @@ def _disagreement_flags(
     lam: float,
     s: dict[str, Any],
     clock: Callable[[float], str] = format_elapsed,
-) -> list[dict[str, Any]]:
+) -> list[Flag]:
     spans: list[tuple[float, float]] = []
     for name, r in residuals.items():
         tol = (
@@ -116,17 +116,17 @@ def _disagreement_flags(
         att = attr_mod.attribute(shifts, noise, lam, s["attribution_min_explained"])
         worst = max((abs(v) for v in shifts.values() if np.isfinite(v)), default=0.0)
         rows.append(
-            {
-                "start_s": a,
-                "end_s": b,
-                "check": "lambda_disagreement",
-                "suspect": att.suspect,
-                "severity": "error" if worst > 2.0 * s["disagreement_tolerance"] else "warning",
-                "value": 100.0 * att.amount,
-                "message": f"Lambda estimates disagree from {clock(a)} to "
+            Flag(
+                start_s=a,
+                end_s=b,
+                check="lambda_disagreement",
+                suspect=att.suspect,
+                severity="error" if worst > 2.0 * s["disagreement_tolerance"] else "warning",
+                value=100.0 * att.amount,
+                message=f"Lambda estimates disagree from {clock(a)} to "
                 f"{clock(b)} (worst median residual {100 * worst:.1f} %): "
                 + attr_mod.describe(att),
-            }
+            )
         )
     return rows
 
@@ -138,7 +138,7 @@ def _drift_flags(
     lam: float,
     s: dict[str, Any],
     clock: Callable[[float], str] = format_elapsed,
-) -> list[dict[str, Any]]:
+) -> list[Flag]:
     detected = [r for r in results if r.detected]
     events = merge_events([(r.onset_s, r.end_s) for r in detected])
     rows = []
@@ -156,17 +156,17 @@ def _drift_flags(
         att = attr_mod.attribute(shifts, noise, lam, s["attribution_min_explained"])
         hours = (b - lead.onset_s) / 3600.0
         rows.append(
-            {
-                "start_s": lead.onset_s,
-                "end_s": b,
-                "check": "drift",
-                "suspect": att.suspect,
-                "severity": "warning",
-                "value": 100.0 * att.amount,
-                "message": f"{lead.kind.capitalize()} drift from {clock(lead.onset_s)} "
+            Flag(
+                start_s=lead.onset_s,
+                end_s=b,
+                check="drift",
+                suspect=att.suspect,
+                severity="warning",
+                value=100.0 * att.amount,
+                message=f"{lead.kind.capitalize()} drift from {clock(lead.onset_s)} "
                 f"for {hours:.1f} h (rate {100 * lead.rate_per_h:+.2f} %/h on "
                 f"{lead.residual}): " + attr_mod.describe(att),
-            }
+            )
         )
     return rows
 
@@ -234,7 +234,7 @@ def run_checks(
             res.onset_s = refine_step_onset(time, residuals[res.residual], judged_steady, res)
     noise = {r.residual: (r.noise if np.isfinite(r.noise) else 0.01) for r in results}
 
-    rows: list[dict[str, Any]] = []
+    rows: list[Flag] = []
     clock = make_clock(start_time)
     rows += _disagreement_flags(time, residuals, judged_steady, noise, lam, s, clock)
     rows += _drift_flags(blocks, results, noise, lam, s, clock)

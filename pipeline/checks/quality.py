@@ -2,13 +2,12 @@
 
 from __future__ import annotations
 
-from typing import Any
-
 import numpy as np
 import pandas as pd
 
 from ..constants import MAD_TO_SIGMA
 from ..quantities import GASES
+from ..records import Flag
 from .timebase import mask_runs, median_may_reach, median_step, merge_runs, rolling_median_at
 
 
@@ -18,7 +17,7 @@ def _percent(x: float) -> str:
 
 def out_of_range_flags(
     frame: pd.DataFrame, ranges: dict[str, float], settings: dict
-) -> list[dict[str, Any]]:
+) -> list[Flag]:
     """Negative gas concentrations and readings above the configured full-scale range.
 
     A concentration is negative when it is below -(``out_of_range_negative_fraction`` of its
@@ -31,7 +30,7 @@ def out_of_range_flags(
     """
     time = frame["time"].to_numpy(dtype=float)
     n_smooth = max(1, int(round(settings["out_of_range_smooth_s"] / median_step(time))))
-    rows: list[dict[str, Any]] = []
+    rows: list[Flag] = []
     for col in frame.columns:
         if col == "time":
             continue
@@ -90,21 +89,21 @@ def out_of_range_flags(
                     value = worst
                     detail = f"{worst:.3g} mol/mol" if is_gas else f"{worst:.4g}"
                 rows.append(
-                    {
-                        "start_s": time[i0],
-                        "end_s": time[i1],
-                        "check": "out_of_range",
-                        "suspect": col,
-                        "severity": "warning",
-                        "value": value,
-                        "message": f"{col} reads {what} ({detail} at worst, "
+                    Flag(
+                        start_s=time[i0],
+                        end_s=time[i1],
+                        check="out_of_range",
+                        suspect=col,
+                        severity="warning",
+                        value=value,
+                        message=f"{col} reads {what} ({detail} at worst, "
                         f"{int(np.sum(mask[i0 : i1 + 1]))} samples).",
-                    }
+                    )
                 )
     return rows
 
 
-def time_irregular_flags(time: np.ndarray, settings: dict) -> list[dict[str, Any]]:
+def time_irregular_flags(time: np.ndarray, settings: dict) -> list[Flag]:
     """Duplicate time stamps, backward resets and irregular steps of the time column.
 
     A step is irregular when it exceeds ``time_step_factor`` x the median step but stays below
@@ -122,7 +121,7 @@ def time_irregular_flags(time: np.ndarray, settings: dict) -> list[dict[str, Any
         "irregular sample steps": (dt > settings["time_step_factor"] * step)
         & (dt <= settings["time_gap_factor"] * step),
     }
-    rows: list[dict[str, Any]] = []
+    rows: list[Flag] = []
     for what, mask in kinds.items():
         runs = mask_runs(mask)
         if not len(runs):
@@ -139,15 +138,15 @@ def time_irregular_flags(time: np.ndarray, settings: dict) -> list[dict[str, Any
                 np.min(dt[i0 : i1 + 1]) if "backwards" in what else np.max(dt[i0 : i1 + 1])
             )
             rows.append(
-                {
-                    "start_s": float(min(t[i0], t[i1 + 1])),
-                    "end_s": float(max(t[i0], t[i1 + 1])),
-                    "check": "time_irregular",
-                    "suspect": "time",
-                    "severity": "error" if "backwards" in what else "warning",
-                    "value": worst,
-                    "message": f"{what}: {count} step(s), worst {worst:+.3g} s "
+                Flag(
+                    start_s=float(min(t[i0], t[i1 + 1])),
+                    end_s=float(max(t[i0], t[i1 + 1])),
+                    check="time_irregular",
+                    suspect="time",
+                    severity="error" if "backwards" in what else "warning",
+                    value=worst,
+                    message=f"{what}: {count} step(s), worst {worst:+.3g} s "
                     f"(median step {step:.3g} s).",
-                }
+                )
             )
     return rows

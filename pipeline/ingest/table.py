@@ -471,7 +471,6 @@ def build_run(src: Source, config: Config) -> RunData:
         iso = sum(1 for c in cells if ISO_RE.fullmatch(c))
         fmt = "iso8601" if cells and iso * 2 > len(cells) else "seconds"
 
-    raw_channels = config.raw.get("channels", {}) if isinstance(config.raw, dict) else {}
     density = config.fuel.density_kg_per_m3
 
     n_notes = len(src.notes)
@@ -495,7 +494,7 @@ def build_run(src: Source, config: Config) -> RunData:
     # Units: the config's unit; the file's unit fills in when the config left it implicit.
     convs: dict[str, Conversion] = {}
     for q, ch in channels.items():
-        explicit = isinstance(raw_channels.get(q), dict) and "unit" in raw_channels[q]
+        explicit = ch.unit_given
         unit = ch.unit
         file_unit = _file_unit(src, positions[q]) if q in positions else None
         if q == "time" and fmt == "iso8601":
