@@ -438,7 +438,51 @@ def build_run(src: Source, config: Config) -> RunData:
     time_ch = channels["time"]
     if time_ch.column is None:  # pragma: no cover - parse_config forbids it
         raise ConfigError("[channels.time] must name a column.")
+    positions = _locate_columns(src, channels, meta)
+    tpos = positions["time"]
+    fmt = time_ch.format or _time_format_from_cells(src, tpos)
 
+    n_notes = len(src.notes)
+    raw = src.load(sorted(set(positions.values())), {tpos} if fmt == "iso8601" else set())
+    meta.warnings.extend(src.notes[n_notes:])
+    meta.rows_read = len(next(iter(raw.values()))) if raw else 0
+    if meta.rows_read == 0:
+        raise InputDataError(f"{path}: no data rows{src.rows_note}.")
+    fmt = fmt or _time_format_from_values(raw[tpos])
+
+    convs = _conversions(src, config, positions, fmt, meta)
+    iso_pos = tpos if fmt == "iso8601" else None
+    cols = {p: _Column(raw[p], src.decimal) for p in set(positions.values()) if p != iso_pos}
+    for q, p in positions.items():
+        if p != iso_pos:
+            _count_cells(meta, q, src.names[p], cols[p])
+    _report_missing(meta)
+
+    if iso_pos is not None:
+        t_sec = _iso_seconds(src, config, raw[tpos], meta)
+    else:
+        t_sec = _elapsed_seconds(src, config, cols[tpos], convs["time"], meta)
+    values = _channel_values(src, channels, positions, cols, convs, iso_pos, meta)
+    t_new, rows = _time_policy(t_sec, meta)
+    _report_zero_fuel(meta, values, t_new, rows)
+
+    out: dict[str, np.ndarray] = {"time": t_new}
+    whole = rows.size == t_sec.size  # every row kept, in order: no need to copy the columns
+    for q in (q for q in INPUTS if q in channels and q != "time"):
+        ch = channels[q]
+        if q in values:
+            out[q] = values[q] if whole else values[q][rows]
+        else:
+            assert ch.value is not None
+            v = float(convs[q](np.float64(ch.value)))
+            if q == "thc" and ch.carbon_number != 1:
+                v *= ch.carbon_number
+            out[q] = np.full(rows.size, v)
+    return RunData(frame=columns_frame(out), meta=meta)
+
+
+def _locate_columns(src: Source, channels: dict[str, Channel], meta: RunMeta) -> dict[str, int]:
+    """Position in ``src`` of every channel mapped to a column (noted in ``meta``)."""
     positions: dict[str, int] = {}
     for q, ch in channels.items():
         if ch.column is None:
@@ -462,46 +506,45 @@ def build_run(src: Source, config: Config) -> RunData:
                 "the first one is used."
             )
     meta.columns_in = {q: src.names[i] for q, i in positions.items()}
+    return positions
 
-    # Time format: configured, else ISO 8601 when the sampled time cells look like it.
-    tpos = positions["time"]
-    fmt = time_ch.format
-    if fmt is None and src.time_cells is not None:
-        cells = src.time_cells(tpos)
-        iso = sum(1 for c in cells if ISO_RE.fullmatch(c))
-        fmt = "iso8601" if cells and iso * 2 > len(cells) else "seconds"
 
-    density = config.fuel.density_kg_per_m3
+def _mostly_iso(cells: list[str]) -> str:
+    iso = sum(1 for c in cells if ISO_RE.fullmatch(c))
+    return "iso8601" if cells and iso * 2 > len(cells) else "seconds"
 
-    n_notes = len(src.notes)
-    raw = src.load(sorted(set(positions.values())), {tpos} if fmt == "iso8601" else set())
-    meta.warnings.extend(src.notes[n_notes:])
-    n_rows = len(next(iter(raw.values()))) if raw else 0
-    meta.rows_read = n_rows
-    if n_rows == 0:
-        raise InputDataError(f"{path}: no data rows{src.rows_note}.")
-    if fmt is None:
-        traw = raw[tpos]
-        if pd.api.types.is_datetime64_any_dtype(traw.dtype):
-            fmt = "iso8601"
-        elif pd.api.types.is_numeric_dtype(traw.dtype):
-            fmt = "seconds"
-        else:
-            cells = [str(c).strip() for c in traw.dropna().head(50)]
-            iso = sum(1 for c in cells if ISO_RE.fullmatch(c))
-            fmt = "iso8601" if cells and iso * 2 > len(cells) else "seconds"
 
-    # Units: the config's unit; the file's unit fills in when the config left it implicit.
+def _time_format_from_cells(src: Source, tpos: int) -> str | None:
+    """ISO 8601 when most sampled time cells look like it, else seconds; None when the
+    source cannot show cells before loading."""
+    if src.time_cells is None:
+        return None
+    return _mostly_iso(src.time_cells(tpos))
+
+
+def _time_format_from_values(traw: pd.Series) -> str:
+    """The time format of a loaded time column (datetime, numbers or text)."""
+    if pd.api.types.is_datetime64_any_dtype(traw.dtype):
+        return "iso8601"
+    if pd.api.types.is_numeric_dtype(traw.dtype):
+        return "seconds"
+    return _mostly_iso([str(c).strip() for c in traw.dropna().head(50)])
+
+
+def _conversions(
+    src: Source, config: Config, positions: dict[str, int], fmt: str, meta: RunMeta
+) -> dict[str, Conversion]:
+    """Unit conversion per channel: the config's unit; the file's unit fills in when the
+    config left it implicit (noted in ``meta.units_in``)."""
+    path, density = src.path, config.fuel.density_kg_per_m3
     convs: dict[str, Conversion] = {}
-    for q, ch in channels.items():
-        explicit = ch.unit_given
-        unit = ch.unit
-        file_unit = _file_unit(src, positions[q]) if q in positions else None
+    for q, ch in config.channels.items():
         if q == "time" and fmt == "iso8601":
             meta.units_in[q] = "ISO 8601"
             continue
-        from_file = not explicit and unit == UNIT_FROM_FILE and q in positions
-        if from_file:
+        unit = ch.unit
+        file_unit = _file_unit(src, positions[q]) if q in positions else None
+        if not ch.unit_given and unit == UNIT_FROM_FILE and q in positions:
             col = src.names[positions[q]]
             if not file_unit:
                 raise ConfigError(
@@ -509,8 +552,8 @@ def build_run(src: Source, config: Config) -> RunData:
                     f"none either; add unit = \"...\" to [channels.{q}] in {config.path} "
                     f"(canonical: {INPUTS[q].unit})."
                 )
-            conv = conversion(file_unit, q, f"{path}: column '{col}' ([channels.{q}])", density)
-            convs[q] = conv
+            convs[q] = conversion(file_unit, q, f"{path}: column '{col}' ([channels.{q}])",
+                                  density)
             meta.units_in[q] = file_unit
             continue
         conv = conversion(unit, q, f"[channels.{q}] unit", density)
@@ -519,7 +562,7 @@ def build_run(src: Source, config: Config) -> RunData:
                 fconv = conversion(file_unit, q, f"column '{src.names[positions[q]]}'", density)
             except ConfigError:
                 fconv = None
-            if fconv is not None and not explicit:
+            if fconv is not None and not ch.unit_given:
                 conv, unit = fconv, file_unit
             elif fconv is not None and not fconv.same_as(conv):
                 meta.warnings.append(
@@ -534,54 +577,62 @@ def build_run(src: Source, config: Config) -> RunData:
             )
         convs[q] = conv
         meta.units_in[q] = unit
+    return convs
 
-    iso_pos = tpos if fmt == "iso8601" else None
-    cols = {p: _Column(raw[p], src.decimal) for p in set(positions.values()) if p != iso_pos}
-    for q, p in positions.items():
-        if p == iso_pos:
-            continue
-        _count_cells(meta, q, src.names[p], cols[p])
-    _report_missing(meta)
 
-    # Time in seconds (before the policy).
-    tname = src.names[tpos]
-    if iso_pos is not None:
-        traw = raw[tpos]
-        ts = _iso_times(traw, config.input.timezone, meta, tname)
-        nat = ts.isna().to_numpy()
-        na = traw.isna().to_numpy()
-        bad = nat & ~na
-        if na.any():
-            meta.warnings.append(
-                f"Column '{tname}' (time): {int(na.sum())} empty or missing-marker cell(s)."
-            )
-        if bad.any():
-            meta.bad_cells["time"] = int(bad.sum())
-            meta.warnings.append(
-                f"Column '{tname}' (time): {int(bad.sum())} cell(s) are not ISO 8601 time "
-                f"stamps, e.g. '{traw[bad].iloc[0]}'."
-            )
-        if nat.all():
-            examples = [str(v) for v in traw[~na].head(3)]
-            _no_numbers(src, time_ch, examples, "ISO 8601 time stamps")
-        t0 = ts[~nat].iloc[0]
-        t_sec = ((ts - t0).dt.total_seconds()).to_numpy(dtype=np.float64, na_value=np.nan)
-        meta.start_time = t0.to_pydatetime()
-        meta.metadata.setdefault("start_time_source", f"first time stamp of column '{tname}'")
+def _iso_seconds(src: Source, config: Config, traw: pd.Series, meta: RunMeta) -> np.ndarray:
+    """Seconds since the first readable ISO 8601 time stamp (which is the run's start)."""
+    tname = meta.columns_in["time"]
+    ts = _iso_times(traw, config.input.timezone, meta, tname)
+    nat = ts.isna().to_numpy()
+    na = traw.isna().to_numpy()
+    bad = nat & ~na
+    if na.any():
+        meta.warnings.append(
+            f"Column '{tname}' (time): {int(na.sum())} empty or missing-marker cell(s)."
+        )
+    if bad.any():
+        meta.bad_cells["time"] = int(bad.sum())
+        meta.warnings.append(
+            f"Column '{tname}' (time): {int(bad.sum())} cell(s) are not ISO 8601 time "
+            f"stamps, e.g. '{traw[bad].iloc[0]}'."
+        )
+    if nat.all():
+        examples = [str(v) for v in traw[~na].head(3)]
+        _no_numbers(src, config.channels["time"], examples, "ISO 8601 time stamps")
+    t0 = ts[~nat].iloc[0]
+    meta.start_time = t0.to_pydatetime()
+    meta.metadata.setdefault("start_time_source", f"first time stamp of column '{tname}'")
+    return ((ts - t0).dt.total_seconds()).to_numpy(dtype=np.float64, na_value=np.nan)
+
+
+def _elapsed_seconds(
+    src: Source, config: Config, tcol: _Column, conv: Conversion, meta: RunMeta
+) -> np.ndarray:
+    """Elapsed time in seconds; the run's start from the file's header or metadata."""
+    if np.isnan(tcol.values).all():
+        _no_numbers(src, config.channels["time"], tcol.examples, "numbers (elapsed time)")
+    if src.start_time is not None:
+        meta.start_time = src.start_time
+        meta.metadata.setdefault("start_time_source", src.start_source)
     else:
-        tcol = cols[tpos]
-        if np.isnan(tcol.values).all():
-            _no_numbers(src, time_ch, tcol.examples, "numbers (elapsed time)")
-        t_sec = convs["time"](tcol.values)
-        if src.start_time is not None:
-            meta.start_time = src.start_time
-            meta.metadata.setdefault("start_time_source", src.start_source)
-        else:
-            meta.start_time = start_from_metadata(src.metadata, config.input.timezone, meta)
-            if meta.start_time is not None:
-                meta.metadata.setdefault("start_time_source", "file metadata")
+        meta.start_time = start_from_metadata(src.metadata, config.input.timezone, meta)
+        if meta.start_time is not None:
+            meta.metadata.setdefault("start_time_source", "file metadata")
+    return conv(tcol.values)
 
-    # Other channels: must-have / may-be-empty, then the physical-limit screen.
+
+def _channel_values(
+    src: Source,
+    channels: dict[str, Channel],
+    positions: dict[str, int],
+    cols: dict[int, _Column],
+    convs: dict[str, Conversion],
+    iso_pos: int | None,
+    meta: RunMeta,
+) -> dict[str, np.ndarray]:
+    """Every channel but time in canonical units: must-have / may-be-empty, then the
+    physical-limit screen."""
     values: dict[str, np.ndarray] = {}
     for q, p in positions.items():
         if q == "time" or p == iso_pos:
@@ -597,8 +648,11 @@ def build_run(src: Source, config: Config) -> RunData:
         if q == "thc" and channels[q].carbon_number != 1:
             v = v * channels[q].carbon_number
         values[q] = _screen(meta, q, src.names[p], np.asarray(v, dtype=np.float64))
+    return values
 
-    # Time-base policy.
+
+def _time_policy(t_sec: np.ndarray, meta: RunMeta) -> tuple[np.ndarray, np.ndarray]:
+    """The time-base policy (:func:`monotone_time`): (new time base, rows kept)."""
     valid = np.isfinite(t_sec)
     n_nan = int((~valid).sum())
     rows = np.flatnonzero(valid)
@@ -624,24 +678,8 @@ def build_run(src: Source, config: Config) -> RunData:
         )
     meta.rows_dropped = meta.rows_read - rows.size
     if rows.size == 0:  # pragma: no cover - the time column holds numbers here
-        raise InputDataError(f"{path}: no rows with a readable time.")
-
-    _report_zero_fuel(meta, values, t_new, rows)
-
-    out: dict[str, np.ndarray] = {"time": t_new}
-    n = rows.size
-    whole = n == t_sec.size  # every row kept, in order: no need to copy the columns
-    for q in (q for q in INPUTS if q in channels and q != "time"):
-        ch = channels[q]
-        if q in values:
-            out[q] = values[q] if whole else values[q][rows]
-        else:
-            assert ch.value is not None
-            v = float(convs[q](np.float64(ch.value)))
-            if q == "thc" and ch.carbon_number != 1:
-                v *= ch.carbon_number
-            out[q] = np.full(n, v)
-    return RunData(frame=columns_frame(out), meta=meta)
+        raise InputDataError(f"{meta.source}: no rows with a readable time.")
+    return t_new, rows
 
 
 def _report_zero_fuel(
