@@ -420,6 +420,29 @@ def _mapping(config: Config, src: Source, cols: list[ColumnInfo]) -> tuple[
     return rows, unmapped
 
 
+def _write_new(path: Path, text: str) -> None:
+    """Write ``text`` to a file that must not exist yet (never overwritten)."""
+    try:
+        with open(path, "x", encoding="utf-8") as fh:
+            fh.write(text)
+    except FileExistsError:
+        raise ConfigError(f"{path}: the file exists and was not overwritten.") from None
+    except OSError as exc:
+        raise ConfigError(f"{path}: cannot write ({exc.strerror}).") from None
+
+
+def _trial_read(src: Source, config: Config) -> dict[str, Any]:
+    """What reading the file with ``config`` gives: rows, bad cells and notes, or the error."""
+    try:
+        rd = build_run(src, config)
+    except DynoqcError as exc:
+        return {"error": str(exc), "exit_code": exc.exit_code}
+    return {
+        "rows_read": rd.meta.rows_read, "rows_dropped": rd.meta.rows_dropped,
+        "bad_cells": rd.meta.bad_cells, "warnings": rd.meta.warnings,
+    }
+
+
 def inspect_run(
     run: Path, config_path: Path | None, as_json: bool, write_path: Path | None
 ) -> list[str]:
@@ -458,14 +481,7 @@ def inspect_run(
             doc["config"] = str(config_path)
             doc["mapping"] = mapping
             doc["unmapped"] = unmapped
-            try:
-                rd = build_run(src, config)
-                doc["process"] = {
-                    "rows_read": rd.meta.rows_read, "rows_dropped": rd.meta.rows_dropped,
-                    "bad_cells": rd.meta.bad_cells, "warnings": rd.meta.warnings,
-                }
-            except DynoqcError as exc:
-                doc["process"] = {"error": str(exc), "exit_code": exc.exit_code}
+            doc["process"] = _trial_read(src, config)
         else:
             proposals = propose_channels(cols)
             toml_text = proposal_toml(proposals, src)
@@ -473,15 +489,7 @@ def inspect_run(
             doc["proposal_toml"] = toml_text
             doc["not_found"] = [q for q in REQUIRED_CHANNELS if q not in proposals]
             if write_path is not None:
-                try:
-                    with open(write_path, "x", encoding="utf-8") as fh:
-                        fh.write(toml_text)
-                except FileExistsError:
-                    raise ConfigError(
-                        f"{write_path}: the file exists and was not overwritten."
-                    ) from None
-                except OSError as exc:
-                    raise ConfigError(f"{write_path}: cannot write ({exc.strerror}).") from None
+                _write_new(Path(write_path), toml_text)
                 doc["written"] = str(write_path)
     if as_json:
         return [json.dumps(doc, indent=2, ensure_ascii=False, default=str)]

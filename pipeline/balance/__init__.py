@@ -137,7 +137,6 @@ def compute_balance(
     s = config.sampling
     warnings: list[str] = []
     n = len(frame)
-    t = frame["time"].to_numpy(float)
 
     x_h2o_int = intake_water_fraction(frame, warnings)
     air_basis = config.channels["air_mass_flow"].basis
@@ -174,35 +173,8 @@ def compute_balance(
     else:
         x_h2o_dryer = np.zeros(n)
 
-    # Sampling state: analyzer_mode, and for carbon fuels exhaust carbon near zero.
-    not_sampling = np.zeros(n, dtype=bool)
-    low_carbon = np.zeros(n, dtype=bool)
-    impossible = np.zeros(n, dtype=bool)
-    if fuel.has_carbon:
-        # CO and THC may be missing (NaN counts as 0 there); a missing CO2 is a data gap,
-        # not "not sampling".
-        carbon = np.asarray(gases["co2"], dtype=float).copy()
-        for g in ("co", "thc"):
-            if gases[g] is not None:
-                carbon = carbon + np.nan_to_num(gases[g], nan=0.0)
-        low_carbon = np.isfinite(carbon) & (carbon < s.not_sampling_carbon_fraction)
-    if gases["o2"] is not None and gases["co2"] is not None:
-        # Combustion turns O2 into at most as many moles of CO2 (for any fuel with
-        # H/C >= 2 O/C), so in exhaust CO2 + O2 stays below the O2 + CO2 of air (0.2098,
-        # REFERENCES 1.2); more means span gases or a calibration mix at the analyzers.
-        with np.errstate(invalid="ignore"):
-            impossible = gases["o2"] + gases["co2"] > IMPOSSIBLE_O2_PLUS_CO2
-    mode = _col(frame, "analyzer_mode")
-    mode_logged = np.isfinite(mode) & (mode != 0) if mode is not None else np.zeros(n, bool)
-    mode_seen = _mode_mask(t, mode, analyzer_delay_s) if mode is not None else mode_logged
-    not_sampling = _widen(t, low_carbon | impossible | mode_seen, s.not_sampling_guard_s)
-    sampling = ~not_sampling
-    # Why each sample is not exhaust, the strongest reason first (the checks stage words it).
-    state = np.select(
-        [mode_logged, low_carbon, not_sampling],
-        [STATE_ANALYZER_MODE, STATE_LOW_CARBON, STATE_NOT_EXHAUST],
-        STATE_SAMPLING,
-    ).astype(np.int8)
+    state = sampling_state(frame, config, gases, analyzer_delay_s)
+    sampling = state == STATE_SAMPLING
 
     def masked(x: np.ndarray | None) -> np.ndarray | None:
         return None if x is None else np.where(sampling, x, np.nan)
@@ -287,6 +259,51 @@ def compute_balance(
         derived=derived, warnings=warnings, attrs=attrs, chem=chem,
         x_h2o_dryer=x_h2o_dryer, basis=basis, sampling_state=state,
     )
+
+
+def sampling_state(
+    frame: pd.DataFrame,
+    config: Config,
+    gases: dict[str, np.ndarray | None],
+    analyzer_delay_s: float = 0.0,
+) -> np.ndarray:
+    """Per sample: whether and why the analyzers do not see exhaust (``STATE_*`` codes).
+
+    ``analyzer_mode`` not 0 (as logged, and as seen through the analyzer shift), exhaust
+    carbon below ``[sampling] not_sampling_carbon_fraction`` (carbon fuels), or CO2 + O2 above
+    what exhaust can hold (span gas); every stretch widened by ``not_sampling_guard_s``.
+    """
+    fuel = config.fuel
+    s = config.sampling
+    n = len(frame)
+    t = frame["time"].to_numpy(float)
+    low_carbon = np.zeros(n, dtype=bool)
+    impossible = np.zeros(n, dtype=bool)
+    if fuel.has_carbon:
+        # CO and THC may be missing (NaN counts as 0 there); a missing CO2 is a data gap,
+        # not "not sampling".
+        carbon = np.asarray(gases["co2"], dtype=float).copy()
+        for g in ("co", "thc"):
+            if gases[g] is not None:
+                carbon = carbon + np.nan_to_num(gases[g], nan=0.0)
+        low_carbon = np.isfinite(carbon) & (carbon < s.not_sampling_carbon_fraction)
+    if gases["o2"] is not None and gases["co2"] is not None:
+        # Combustion turns O2 into at most as many moles of CO2 (for any fuel with
+        # H/C >= 2 O/C), so in exhaust CO2 + O2 stays below the O2 + CO2 of air (0.2098,
+        # REFERENCES 1.2); more means span gases or a calibration mix at the analyzers.
+        with np.errstate(invalid="ignore"):
+            impossible = gases["o2"] + gases["co2"] > IMPOSSIBLE_O2_PLUS_CO2
+    mode = _col(frame, "analyzer_mode")
+    mode_logged = np.isfinite(mode) & (mode != 0) if mode is not None else np.zeros(n, bool)
+    mode_seen = _mode_mask(t, mode, analyzer_delay_s) if mode is not None else mode_logged
+    not_sampling = _widen(t, low_carbon | impossible | mode_seen, s.not_sampling_guard_s)
+    # Why each sample is not exhaust, the strongest reason first (the checks stage words it).
+    state = np.select(
+        [mode_logged, low_carbon, not_sampling],
+        [STATE_ANALYZER_MODE, STATE_LOW_CARBON, STATE_NOT_EXHAUST],
+        STATE_SAMPLING,
+    ).astype(np.int8)
+    return state
 
 
 def _derived_results(

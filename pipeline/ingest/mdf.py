@@ -107,8 +107,8 @@ class _Occurrence:
         )
 
 
-def mdf_source(path: Path, options: InputOptions, mdf: Any) -> Source:
-    """Describe an open ``asammdf.MDF`` as a :class:`~pipeline.ingest.table.Source`."""
+def _occurrences(path: Path, mdf: Any) -> tuple[list[_Occurrence], list[str]]:
+    """Every data channel of every channel group, and the names of the master channels."""
     masters: dict[int, int] = dict(getattr(mdf, "masters_db", {}) or {})
     occurrences: list[_Occurrence] = []
     master_names: list[str] = []
@@ -124,22 +124,95 @@ def mdf_source(path: Path, options: InputOptions, mdf: Any) -> Source:
             occurrences.append(_Occurrence(name, gi, ci, unit, samples))
     if not occurrences:
         raise InputDataError(f"{path}: the MDF file holds no data channels.")
+    return occurrences, master_names
 
-    names: list[str] = []
-    units: list[str | None] = []
-    targets: list[_Occurrence | None] = []  # None: the time raster
-    time_name = master_names[0] if master_names else "time"
-    names.append(time_name)
-    units.append("s")
-    targets.append(None)
+
+def _mdf_start(mdf: Any) -> tuple[datetime | None, str]:
+    """The header start time (UTC) and where it came from."""
+    start = getattr(mdf, "start_time", None)
+    note = "MDF header start time"
+    if not isinstance(start, datetime):
+        return None, note
+    if start.tzinfo is None:
+        start = start.replace(tzinfo=UTC)
+        note += " (no time zone flag; taken as UTC)"
+    return start.astimezone(UTC), note
+
+
+def _read_signals(
+    path: Path, mdf: Any, keys: list[tuple[str, int, int]], notes: list[str]
+) -> tuple[dict[tuple[str, int, int], tuple[np.ndarray, np.ndarray, bool]], list[float]]:
+    """(time stamps, samples, hold) per channel key, in time order, and each channel's median
+    step; a non-numeric channel is read as missing (noted)."""
+    try:
+        signals = mdf.select(list(keys), ignore_value2text_conversions=True)
+    except Exception as exc:  # noqa: BLE001 - asammdf raises many types on corrupt data
+        raise InputDataError(f"{path}: cannot read the MDF channels ({exc}).") from None
+    data: dict[tuple[str, int, int], tuple[np.ndarray, np.ndarray, bool]] = {}
+    steps: list[float] = []
+    for key, sig in zip(keys, signals, strict=True):
+        ts = np.asarray(sig.timestamps, dtype=np.float64)
+        samples = np.asarray(sig.samples)
+        if samples.ndim != 1 or samples.dtype.kind not in "iufb":
+            notes.append(
+                f"Channel '{key[0]}' (group {key[1]}) is not a numeric 1-D channel; it is "
+                "read as missing."
+            )
+            samples = np.full(ts.shape, np.nan)
+        hold = samples.dtype.kind in "iub"
+        if ts.size > 1 and (np.diff(ts) < 0).any():
+            notes.append(
+                f"Channel '{key[0]}' (group {key[1]}): time stamps go backwards; its "
+                "samples are taken in time order."
+            )
+            order = np.argsort(ts, kind="stable")
+            ts, samples = ts[order], samples[order]
+        data[key] = (ts, samples, hold)
+        d = np.diff(ts)
+        if (d > 0).any():
+            steps.append(float(np.median(d[d > 0])))
+    return data, steps
+
+
+def _raster_grid(
+    path: Path, spans: list[tuple[float, float]], steps: list[float],
+    raster_cfg: float | None, notes: list[str],
+) -> np.ndarray:
+    """The common time raster: the configured step, else the fastest mapped channel's."""
+    if not spans:
+        raise InputDataError(f"{path}: the mapped MDF channels hold no samples.")
+    t0 = min(s[0] for s in spans)
+    t1 = max(s[1] for s in spans)
+    if raster_cfg:
+        raster = float(raster_cfg)
+        notes.append(f"MDF channels resampled to the configured raster of {raster:g} s.")
+    else:
+        raster = min(steps) if steps else 1.0
+        notes.append(
+            f"MDF channels resampled to a raster of {raster:g} s (the fastest mapped "
+            "channel); set [input] raster_s to choose another."
+        )
+    n = int(np.floor((t1 - t0) / raster + 1e-9)) + 1
+    if n > MAX_RASTER_POINTS:
+        raise InputDataError(
+            f"{path}: a raster of {raster:g} s over {t1 - t0:g} s gives {n} rows; set a "
+            "coarser [input] raster_s."
+        )
+    return t0 + raster * np.arange(n, dtype=np.float64)
+
+
+def mdf_source(path: Path, options: InputOptions, mdf: Any) -> Source:
+    """Describe an open ``asammdf.MDF`` as a :class:`~pipeline.ingest.table.Source`."""
+    occurrences, master_names = _occurrences(path, mdf)
+    names: list[str] = [master_names[0] if master_names else "time"]
+    units: list[str | None] = ["s"]
+    targets: list[_Occurrence | None] = [None]  # None: the time raster
     by_name: dict[str, list[_Occurrence]] = {}
     for occ in occurrences:
         by_name.setdefault(occ.name, []).append(occ)
     notes: list[str] = []
-    chosen: dict[str, _Occurrence] = {}
     for name, occs in by_name.items():
         best = max(occs, key=lambda o: o.samples)  # max keeps the first of equals
-        chosen[name] = best
         names.append(name)
         units.append(best.unit or None)
         targets.append(best)
@@ -148,16 +221,7 @@ def mdf_source(path: Path, options: InputOptions, mdf: Any) -> Source:
                 names.append(f"{name}@{occ.group}")
                 units.append(occ.unit or None)
                 targets.append(occ)
-
-    start = getattr(mdf, "start_time", None)
-    start_note = "MDF header start time"
-    if isinstance(start, datetime):
-        if start.tzinfo is None:
-            start = start.replace(tzinfo=UTC)
-            start_note += " (no time zone flag; taken as UTC)"
-        start = start.astimezone(UTC)
-    else:
-        start = None
+    start, start_note = _mdf_start(mdf)
     metadata = {"format": f"ASAM MDF {getattr(mdf, 'version', '?')}"}
     raster_cfg = getattr(options, "raster_s", None)
 
@@ -175,54 +239,9 @@ def mdf_source(path: Path, options: InputOptions, mdf: Any) -> Source:
                     f"({others}); group {occ.group} is used. Write column = "
                     f"\"{occ.name}@<group>\" to choose another."
                 )
-        try:
-            signals = mdf.select(list(uniq), ignore_value2text_conversions=True)
-        except Exception as exc:  # noqa: BLE001 - asammdf raises many types on corrupt data
-            raise InputDataError(f"{path}: cannot read the MDF channels ({exc}).") from None
-        data: dict[tuple[str, int, int], tuple[np.ndarray, np.ndarray, bool]] = {}
-        steps: list[float] = []
-        for key, sig in zip(uniq, signals, strict=True):
-            ts = np.asarray(sig.timestamps, dtype=np.float64)
-            samples = np.asarray(sig.samples)
-            if samples.ndim != 1 or samples.dtype.kind not in "iufb":
-                notes.append(
-                    f"Channel '{key[0]}' (group {key[1]}) is not a numeric 1-D channel; it is "
-                    "read as missing."
-                )
-                samples = np.full(ts.shape, np.nan)
-            hold = samples.dtype.kind in "iub"
-            if ts.size > 1 and (np.diff(ts) < 0).any():
-                notes.append(
-                    f"Channel '{key[0]}' (group {key[1]}): time stamps go backwards; its "
-                    "samples are taken in time order."
-                )
-                order = np.argsort(ts, kind="stable")
-                ts, samples = ts[order], samples[order]
-            data[key] = (ts, samples, hold)
-            d = np.diff(ts)
-            if (d > 0).any():
-                steps.append(float(np.median(d[d > 0])))
+        data, steps = _read_signals(path, mdf, uniq, notes)
         spans = [(v[0][0], v[0][-1]) for v in data.values() if v[0].size]
-        if not spans:
-            raise InputDataError(f"{path}: the mapped MDF channels hold no samples.")
-        t0 = min(s[0] for s in spans)
-        t1 = max(s[1] for s in spans)
-        if raster_cfg:
-            raster = float(raster_cfg)
-            notes.append(f"MDF channels resampled to the configured raster of {raster:g} s.")
-        else:
-            raster = min(steps) if steps else 1.0
-            notes.append(
-                f"MDF channels resampled to a raster of {raster:g} s (the fastest mapped "
-                "channel); set [input] raster_s to choose another."
-            )
-        n = int(np.floor((t1 - t0) / raster + 1e-9)) + 1
-        if n > MAX_RASTER_POINTS:
-            raise InputDataError(
-                f"{path}: a raster of {raster:g} s over {t1 - t0:g} s gives {n} rows; set a "
-                "coarser [input] raster_s."
-            )
-        grid = t0 + raster * np.arange(n, dtype=np.float64)
+        grid = _raster_grid(path, spans, steps, raster_cfg, notes)
         out: dict[int, pd.Series] = {}
         for p in positions:
             occ = targets[p]

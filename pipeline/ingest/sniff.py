@@ -231,6 +231,48 @@ def _parse_metadata(line: str, delimiter: str) -> tuple[str, str] | None:
     return None
 
 
+def _first_data_line(path: Path, content: list[int], is_data: dict[int, bool]) -> int:
+    """First data line: a data row followed by two more (tolerates odd rows further down)."""
+    for k, i in enumerate(content):
+        nxt = content[k : k + 3]
+        if all(is_data[j] for j in nxt) and (len(nxt) == 3 or k + len(nxt) == len(content)):
+            return i
+    raise InputDataError(
+        f"{path}: no data rows found below the header (a header without data, or a "
+        "layout dynoqc cannot read)."
+    )
+
+
+def _header_lines(
+    path: Path,
+    split: dict[int, list[str]],
+    content: list[int],
+    data_line: int,
+    units_row: bool | None,
+) -> tuple[int, int | None, int]:
+    """(data line, units line or None, names line): a units row just below the names or
+    just above the data (``units_row`` from [input] forces or forbids it)."""
+    before = [i for i in content if i < data_line]
+    units_line: int | None = None
+    if units_row is not False and looks_like_units(split[data_line]):
+        units_line = data_line
+        rest = [i for i in content if i > data_line]
+        if not rest:
+            raise InputDataError(f"{path}: no data rows below the units row (header only).")
+        data_line = rest[0]
+    if units_line is None and before:
+        last = before[-1]
+        if units_row or (units_row is None and looks_like_units(split[last])):
+            units_line = last
+            before = before[:-1]
+    if not before:
+        raise InputDataError(
+            f"{path}: no names row found above the data (line {data_line + 1}); the first "
+            "row before the data must name the columns."
+        )
+    return data_line, units_line, before[-1]
+
+
 def sniff(path: Path, options: InputOptions) -> Layout:
     """Find the layout of a logger export from its first lines.
 
@@ -273,39 +315,10 @@ def sniff(path: Path, options: InputOptions) -> Layout:
     n_fields = Counter(counts).most_common(1)[0][0]
     is_data = {i: _is_data(split[i], n_fields) for i in content}
 
-    # First data line: a data row followed by two more (tolerates odd rows further down).
-    data_line = None
-    for k, i in enumerate(content):
-        nxt = content[k : k + 3]
-        if all(is_data[j] for j in nxt) and (len(nxt) == 3 or k + len(nxt) == len(content)):
-            data_line = i
-            break
-    if data_line is None:
-        raise InputDataError(
-            f"{path}: no data rows found below the header (a header without data, or a "
-            "layout dynoqc cannot read)."
-        )
-    before = [i for i in content if i < data_line]
-    units_line: int | None = None
-    if options.units_row is not False and looks_like_units(split[data_line]):
-        units_line = data_line
-        rest = [i for i in content if i > data_line]
-        if not rest:
-            raise InputDataError(f"{path}: no data rows below the units row (header only).")
-        data_line = rest[0]
-    if units_line is None and before:
-        last = before[-1]
-        if options.units_row or (
-            options.units_row is None and looks_like_units(split[last])
-        ):
-            units_line = last
-            before = before[:-1]
-    if not before:
-        raise InputDataError(
-            f"{path}: no names row found above the data (line {data_line + 1}); the first "
-            "row before the data must name the columns."
-        )
-    names_line = before[-1]
+    data_line = _first_data_line(path, content, is_data)
+    data_line, units_line, names_line = _header_lines(
+        path, split, content, data_line, options.units_row
+    )
     names = split[names_line]
     units = split[units_line] if units_line is not None else None
     detected["units_row"] = options.units_row is None
