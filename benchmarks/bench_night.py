@@ -82,8 +82,9 @@ def timed(mod, name, label):
             times[label] = times.get(label, 0.0) + time.perf_counter() - t
     setattr(mod, name, wrapper)
 for name, label in [("read_run", "ingest (read_run)"),
-                    ("align_analyzers", "alignment (align_analyzers)"),
-                    ("compute_balance", "balance (compute_balance, incl. drift-corrected)"),
+                    ("align", "alignment (align)"),
+                    ("compute_balance", "balance (compute_balance)"),
+                    ("drift_corrected", "drift correction (drift_corrected)"),
                     ("run_checks", "checks (run_checks)"),
                     ("emissions_table", "emissions table"),
                     ("process_run", "process_run total")]:
