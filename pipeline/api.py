@@ -27,6 +27,7 @@ from .config import Config, load_config
 from .ingest import read_run
 from .quantities import DERIVED, GASES, INPUTS
 from .records import ProcessResult, RunData, columns_frame
+from .states import ENGINE_STATE_ATTRS, engine_state, running
 
 
 def run_stem(path: Path) -> str:
@@ -147,24 +148,29 @@ def process_run(
     settings = CheckSettings.from_config(cfg)
     progress("reading")
     run = read_run(Path(run_path), cfg)
+    state = engine_state(run.frame, settings)
     progress("aligning")
     frame, alignment = align(run.frame, settings)
     progress("balance")
-    bal = compute_balance(frame, cfg, analyzer_delay_s=alignment.delay_s)
-    corrected = drift_corrected(frame, cfg, analyzer_delay_s=alignment.delay_s)
+    bal = compute_balance(frame, cfg, analyzer_delay_s=alignment.delay_s,
+                          engine_running=running(state))
+    corrected = drift_corrected(frame, cfg, analyzer_delay_s=alignment.delay_s,
+                                engine_running=running(state))
     progress("checks")
     checked = run_checks(
         frame, bal.derived, settings, has_sensor="lambda_sensor" in frame,
         start_time=run.meta.start_time, logged=run.frame, sampling_state=bal.sampling_state,
+        engine_state=state,
     )
     progress("results")
-    return _assemble(cfg, run, frame, alignment, bal, corrected, checked)
+    return _assemble(cfg, run, frame, state, alignment, bal, corrected, checked)
 
 
 def _assemble(
     cfg: Config,
     run: RunData,
     frame: pd.DataFrame,
+    state: np.ndarray,
     alignment: Alignment,
     bal: BalanceResult,
     corrected: DriftCorrected | None,
@@ -173,7 +179,8 @@ def _assemble(
     """The stages' outputs as one result: series side by side with their attributes, the
     tables, provenance and the console lines of the verdicts."""
     series = _join_columns(
-        frame, bal.derived, checked.series, corrected.series if corrected else {}
+        frame, bal.derived, {"engine_state": state}, checked.series,
+        corrected.series if corrected else {},
     )
     tables = dict(checked.tables)
     if corrected is not None:
@@ -183,6 +190,7 @@ def _assemble(
         tables["emissions"] = emissions
     series_attrs = _series_attrs(cfg, run)
     series_attrs.update(checked.series_attrs)
+    series_attrs["engine_state"] = dict(ENGINE_STATE_ATTRS)
     for name in series.columns:
         base = name.removesuffix("_driftcor")
         if base != name and base in series_attrs:

@@ -85,7 +85,9 @@ FAULT_CHECKS: tuple[str, ...] = ("drift", "lambda_disagreement")
 ATTENTION_CHECKS: tuple[str, ...] = ("out_of_range", "condensation_risk")
 
 #: Checks that say data are missing or not exhaust, not that an instrument is wrong.
-AVAILABILITY_CHECKS: tuple[str, ...] = ("data_gap", "analyzer_not_sampling", "time_irregular")
+AVAILABILITY_CHECKS: tuple[str, ...] = (
+    "data_gap", "analyzer_not_sampling", "engine_off", "time_irregular",
+)
 
 #: Verdict statuses, in the order a reader lists them.
 STATUS_ORDER: tuple[str, ...] = ("suspect", "shared suspect", "attention", "ok")

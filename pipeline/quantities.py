@@ -83,6 +83,7 @@ _DERIVED = [
     Quantity("brake_power", "kW", "brake power from speed and torque", "derived"),
     Quantity("sampling", "1", "1 where the analyzers sample exhaust, 0 where not", "derived"),
     Quantity("valid", "1", "1 where all three lambda estimates are defined", "derived"),
+    Quantity("engine_state", "1", "engine operating state (0 off, 1 starting, 2 idle, 3 running)", "derived"),
 ]
 # fmt: on
 

@@ -312,7 +312,10 @@ def test_render_report_writes_figures_and_summary(night: Path, tmp_path: Path) -
     assert s["headline"] == "Suspect: CO2 analyzer."
     assert s["verdicts"][0]["status"] == "suspect"
     assert s["skipped_figures"] == {}
-    assert len(s["flags"]) == 2 and s["flags"][1]["start"] == "22:57 UTC"
+    # instrument findings are listed before data availability
+    assert len(s["flags"]) == 2 and s["flags"][0]["start"] == "22:57 UTC"
+    assert [f["check"] for f in s["flags"]] == ["drift", "analyzer_not_sampling"]
+    assert s["flag_counts"] == {"analyzer_not_sampling": 1, "drift": 1}
     md = (tmp_path / "night_summary.md").read_text()
     assert md.index("Verdict per instrument") < md.index("## Flags") < md.index("Key numbers")
     assert (tmp_path / "night_summary.pdf").read_bytes().startswith(b"%PDF")

@@ -113,7 +113,11 @@ def intake_water_fraction(frame: pd.DataFrame, warnings: list[str]) -> np.ndarra
 
 
 def compute_balance(
-    frame: pd.DataFrame, config: Config, *, analyzer_delay_s: float = 0.0
+    frame: pd.DataFrame,
+    config: Config,
+    *,
+    analyzer_delay_s: float = 0.0,
+    engine_running: np.ndarray | None = None,
 ) -> BalanceResult:
     """Compute lambda_flow, lambda_carbon, lambda_oxygen, water and dew point for every sample.
 
@@ -132,6 +136,9 @@ def compute_balance(
     already applied to the gas channels of ``frame``: the ``analyzer_mode`` channel (not
     shifted) is applied both as logged and shifted by it, and every not-sampling stretch is
     widened by ``[sampling] not_sampling_guard_s`` for the analyzers' response.
+
+    ``engine_running`` (:func:`pipeline.states.running`): where False (engine off or still
+    starting) lambdas and every exhaust-based value are NaN; they mean nothing there.
     """
     fuel = config.fuel
     s = config.sampling
@@ -144,6 +151,8 @@ def compute_balance(
     air_dry = dry_air_from_wet(air, x_h2o_int) if air_basis == "wet" else air
     fuel_flow = frame["fuel_mass_flow"].to_numpy(float)
     lam_flow = lambda_from_flows(air_dry, fuel_flow, fuel)
+    on = np.ones(n, dtype=bool) if engine_running is None else np.asarray(engine_running, bool)
+    lam_flow = np.where(on, lam_flow, np.nan)
 
     # Analyzer readings, as measured; NOx split into NO/NO2 when not measured apart.
     gases: dict[str, np.ndarray | None] = {
@@ -176,8 +185,10 @@ def compute_balance(
     state = sampling_state(frame, config, gases, analyzer_delay_s)
     sampling = state == STATE_SAMPLING
 
+    exhaust = sampling & on
+
     def masked(x: np.ndarray | None) -> np.ndarray | None:
-        return None if x is None else np.where(sampling, x, np.nan)
+        return None if x is None else np.where(exhaust, x, np.nan)
 
     x_co2_int_dry = s.intake_co2_ppm * 1e-6
     o2 = masked(gases["o2"])
@@ -494,7 +505,11 @@ class DriftCorrected:
 
 
 def drift_corrected(
-    frame: pd.DataFrame, config: Config, *, analyzer_delay_s: float = 0.0
+    frame: pd.DataFrame,
+    config: Config,
+    *,
+    analyzer_delay_s: float = 0.0,
+    engine_running: np.ndarray | None = None,
 ) -> DriftCorrected | None:
     """Drift-correct the configured analyzers and compute the balance again on them
     (:func:`.driftcor.apply_drift_correction`, 40 CFR 1065.672); None when no analyzer has a
@@ -502,7 +517,8 @@ def drift_corrected(
     corrected_frame, readings, notes = apply_drift_correction(frame, config)
     if corrected_frame is None or readings is None:
         return None
-    derived = compute_balance(corrected_frame, config, analyzer_delay_s=analyzer_delay_s).derived
+    derived = compute_balance(corrected_frame, config, analyzer_delay_s=analyzer_delay_s,
+                              engine_running=engine_running).derived
     series = {f"{g}_driftcor": corrected_frame[g].to_numpy() for g in config.drift_correction.gases}
     series.update({f"{r}_driftcor": derived[r].to_numpy() for r in DRIFTCOR_RATES if r in derived})
     return DriftCorrected(series, derived, readings, notes)

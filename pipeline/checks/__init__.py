@@ -22,8 +22,15 @@ import pandas as pd
 from ..instruments import CORE_INSTRUMENTS
 from ..quantities import GASES
 from ..records import Flag, make_flags
+from ..states import running
 from . import attribution as attr_mod
-from .availability import condensation_flags, gap_flags, method_invalid_flags, not_sampling_flags
+from .availability import (
+    condensation_flags,
+    engine_off_flags,
+    gap_flags,
+    method_invalid_flags,
+    not_sampling_flags,
+)
 from .disagreement import disagreement_intervals, merge_events
 from .drift import DriftResult, block_samples, detect_drift, drift_table, refine_step_onset
 from .quality import out_of_range_flags, time_irregular_flags
@@ -180,6 +187,7 @@ def run_checks(
     start_time: datetime | None = None,
     logged: pd.DataFrame | None = None,
     sampling_state: np.ndarray | None = None,
+    engine_state: np.ndarray | None = None,
 ) -> ChecksResult:
     """Steady points, residuals, disagreement, drift, attribution, every flag of the night
     and the verdict per instrument.
@@ -197,6 +205,9 @@ def run_checks(
         found in the data as logged, so a dropout of the whole logger is one flag and the
         shifted tail is not mistaken for one.
     sampling_state: the balance's per-sample sampling state, for ``analyzer_not_sampling``.
+    engine_state: :func:`pipeline.states.engine_state` per sample: steady points, residual
+        checks and range checks use running samples only; each stop is an ``engine_off``
+        interval.
     """
     s = resolve_settings(settings)
     typed = settings if isinstance(settings, CheckSettings) else None
@@ -208,8 +219,9 @@ def run_checks(
     residuals = compute_residuals(estimates)
     fuel = _column(frame, "fuel_mass_flow", n)
     fuel_c = carbon_fuel_flow(fuel, estimates["flow"], estimates["carbon"])
-    judged = _judged_mask(derived, n)
-    steady, runs = steady_mask(frame, s)
+    on = running(engine_state) if engine_state is not None else np.ones(n, dtype=bool)
+    judged = _judged_mask(derived, n) & on
+    steady, runs = steady_mask(frame, s, on)
     judged_steady = steady & judged
 
     series: dict[str, np.ndarray] = {"steady": steady.astype(np.int8)}
@@ -238,9 +250,9 @@ def run_checks(
     clock = make_clock(start_time)
     rows += _disagreement_flags(time, residuals, judged_steady, noise, lam, s, clock)
     rows += _drift_flags(blocks, results, noise, lam, s, clock)
-    rows += out_of_range_flags(frame, s["ranges"], s)
+    rows += out_of_range_flags(frame, s["ranges"], s, judged_gases=on & _sampling(derived, n))
     rows += time_irregular_flags(time, s)
-    rows += _availability_flags(frame, derived, logged, sampling_state, typed)
+    rows += _availability_flags(frame, derived, logged, sampling_state, engine_state, s, typed)
     flags = make_flags(rows)
     if len(flags):
         flags = flags.sort_values(["start_s", "check"], kind="stable").reset_index(drop=True)
@@ -270,11 +282,17 @@ def run_checks(
     )
 
 
+def _sampling(derived: pd.DataFrame, n: int) -> np.ndarray:
+    return _column(derived, "sampling", n, 1.0) > 0.5
+
+
 def _availability_flags(
     frame: pd.DataFrame,
     derived: pd.DataFrame,
     logged: pd.DataFrame | None,
     sampling_state: np.ndarray | None,
+    engine_state: np.ndarray | None,
+    s: Mapping[str, Any],
     settings: CheckSettings | None,
 ) -> list[Flag]:
     """Gaps (in the data as logged), analyzers not sampling, condensation risk, invalid
@@ -287,9 +305,14 @@ def _availability_flags(
         out += gap_flags(
             logged["time"].to_numpy(dtype=float), {c: logged[c].to_numpy() for c in essential}
         )
+    fuel_on = np.nan_to_num(_column(frame, "fuel_mass_flow", n), nan=0.0) > 0
+    on = running(engine_state) & fuel_on if engine_state is not None else fuel_on
     if sampling_state is not None:
-        fuel_on = np.nan_to_num(_column(frame, "fuel_mass_flow", n), nan=0.0) > 0
-        out += not_sampling_flags(time, sampling_state, fuel_on)
+        out += not_sampling_flags(time, sampling_state, on,
+                                  merge_gap_s=s["availability_merge_gap_s"],
+                                  min_duration_s=s["availability_min_duration_s"])
+    if engine_state is not None:
+        out += engine_off_flags(time, engine_state, merge_gap_s=s["availability_merge_gap_s"])
     margin = settings.condensation_margin_K if settings is not None else 5.0
     if "exhaust_dewpoint" in derived:
         line = _column(frame, "sample_line_temperature", n) if "sample_line_temperature" in frame \

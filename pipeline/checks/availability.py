@@ -16,6 +16,7 @@ import pandas as pd
 from ..balance import STATE_ANALYZER_MODE, STATE_LOW_CARBON, STATE_SAMPLING
 from ..records import Flag
 from ..spans import mask_to_intervals, runs
+from ..states import ENGINE_OFF
 
 #: Why analyzers do not see exhaust, by the strongest ``sampling_state`` code in a stretch.
 _NOT_SAMPLING_WHY = {
@@ -26,19 +27,43 @@ _NOT_EXHAUST_WHY = "CO2 + O2 read above air's O2, as with span gas"
 
 
 def not_sampling_flags(
-    time: np.ndarray, sampling_state: np.ndarray, fuel_on: np.ndarray
+    time: np.ndarray,
+    sampling_state: np.ndarray,
+    engine_on: np.ndarray,
+    *,
+    merge_gap_s: float = 0.0,
+    min_duration_s: float = 0.0,
 ) -> list[Flag]:
     """``analyzer_not_sampling`` (info) for each stretch where the analyzers do not see
-    exhaust while fuel flows; value: samples in the stretch."""
+    exhaust while the engine runs (stretches closer than ``merge_gap_s`` are one, shorter
+    than ``min_duration_s`` not listed); value: samples not sampling in the stretch."""
     state = np.asarray(sampling_state)
     out = []
-    for start, end, i0, i1 in mask_to_intervals(time, (state != STATE_SAMPLING) & fuel_on):
+    mask = (state != STATE_SAMPLING) & engine_on
+    for start, end, i0, i1 in mask_to_intervals(time, mask, min_duration_s=min_duration_s,
+                                                merge_gap_s=merge_gap_s):
         why = _NOT_SAMPLING_WHY.get(int(state[i0 : i1 + 1].max()), _NOT_EXHAUST_WHY)
-        count = i1 - i0 + 1
+        count = int(mask[i0 : i1 + 1].sum())
         out.append(Flag(
             start, end, "analyzer_not_sampling", "", "info", float(count),
             f"Analyzers not sampling exhaust ({why}); exhaust-based values are NaN for these "
             f"{count} samples.",
+        ))
+    return out
+
+
+def engine_off_flags(
+    time: np.ndarray, engine_state: np.ndarray, *, merge_gap_s: float = 0.0
+) -> list[Flag]:
+    """``engine_off`` (info) for each stop of the engine: no instrument is judged there.
+    value: the stop's length [s]."""
+    out = []
+    off = np.asarray(engine_state) == ENGINE_OFF
+    for start, end, _, _ in mask_to_intervals(time, off, merge_gap_s=merge_gap_s):
+        out.append(Flag(
+            start, end, "engine_off", "", "info", float(end - start),
+            f"Engine off for {end - start:.0f} s (speed or fuel flow at zero); no lambda and "
+            "no instrument check there, and the first minutes after the start are left out.",
         ))
     return out
 

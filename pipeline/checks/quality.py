@@ -16,7 +16,11 @@ def _percent(x: float) -> str:
 
 
 def out_of_range_flags(
-    frame: pd.DataFrame, ranges: dict[str, float], settings: dict
+    frame: pd.DataFrame,
+    ranges: dict[str, float],
+    settings: dict,
+    *,
+    judged_gases: np.ndarray | None = None,
 ) -> list[Flag]:
     """Negative gas concentrations and readings above the configured full-scale range.
 
@@ -26,7 +30,9 @@ def out_of_range_flags(
     own noise after the rolling median. A reading above ``out_of_range_high_fraction`` of the range
     is out of range (40 CFR 1065.550 range rule, REFERENCES 1.10 [M]). Both tests use a
     centred rolling median over ``out_of_range_smooth_s``. Stretches closer than
-    ``out_of_range_merge_gap_s`` are merged; one flag per stretch.
+    ``out_of_range_merge_gap_s`` are merged; one flag per stretch. Gas readings count only
+    where ``judged_gases`` (the analyzers sample exhaust of a running engine): zero gas,
+    span gas and ambient air are not exhaust readings.
     """
     time = frame["time"].to_numpy(dtype=float)
     n_smooth = max(1, int(round(settings["out_of_range_smooth_s"] / median_step(time))))
@@ -39,6 +45,8 @@ def out_of_range_flags(
         if not is_gas and full is None:
             continue
         raw = frame[col].to_numpy(dtype=float)
+        if is_gas and judged_gases is not None:
+            raw = np.where(judged_gases, raw, np.nan)
         # a rolling median, so noise around a zero reading is not taken for a negative reading
         limits: list[tuple[str, float, float]] = []  # (what, median <= low, median >= high)
         if is_gas:

@@ -46,6 +46,24 @@ ALIGNMENT_TRANSIENT_WINDOW_S = 60.0
 #: practice).
 ALIGNMENT_MIN_QUALITY = 0.3
 
+# --- engine state ---------------------------------------------------------------------------
+#: Below this speed the engine is off (stopped or cranking) [rpm] (common practice: starters
+#: crank at 150-300 rpm, diesel and gasoline engines idle at 600-1000 rpm).
+ENGINE_OFF_SPEED_RPM = 300.0
+#: Fuel flow at or below this fraction of the night's 99th percentile means no combustion
+#: (engine stopped, fuel cut, meter at rest) [1] (common practice: a Coriolis meter's zero
+#: scatter is well below 1 % of full flow).
+ENGINE_OFF_FUEL_FRACTION = 0.01
+#: Off stretches shorter than this are not a stop (a bad cell, a speed pick-up glitch) [s]
+#: (common practice).
+ENGINE_MIN_STOP_S = 5.0
+#: After a start, samples are "starting" for this long: the exhaust lines are purged of air,
+#: the lambda sensor heats, the engine warms its combustion chamber [s] (common practice).
+ENGINE_START_SETTLE_S = 120.0
+#: Running below this fraction of the night's 99th-percentile torque is idle [1] (common
+#: practice).
+ENGINE_IDLE_TORQUE_FRACTION = 0.05
+
 # --- steady operating points ----------------------------------------------------------------
 #: Trailing window over which speed, torque and fuel flow must be steady [s] (common practice).
 STEADY_WINDOW_S = 20.0
@@ -146,6 +164,13 @@ TIME_STEP_FACTOR = 1.5
 #: the pipeline, not here) [1] (common practice).
 TIME_GAP_FACTOR = 10.0
 
+#: Availability flags (analyzers not sampling, engine off) closer than this are one interval
+#: [s] (common practice: a purge pulse train or a stall-restart is one event).
+AVAILABILITY_MERGE_GAP_S = 60.0
+#: Availability intervals shorter than this are not listed (the samples stay masked) [s]
+#: (common practice: a few samples of a valve switching are not an event).
+AVAILABILITY_MIN_DURATION_S = 5.0
+
 #: Every threshold, by its ``[checks]`` key.
 DEFAULTS: dict[str, float] = {
     "default_analyzer_delay_s": DEFAULT_ANALYZER_DELAY_S,
@@ -156,6 +181,11 @@ DEFAULTS: dict[str, float] = {
     "alignment_min_transients": ALIGNMENT_MIN_TRANSIENTS,
     "alignment_transient_fraction": ALIGNMENT_TRANSIENT_FRACTION,
     "alignment_min_quality": ALIGNMENT_MIN_QUALITY,
+    "engine_off_speed_rpm": ENGINE_OFF_SPEED_RPM,
+    "engine_off_fuel_fraction": ENGINE_OFF_FUEL_FRACTION,
+    "engine_min_stop_s": ENGINE_MIN_STOP_S,
+    "engine_start_settle_s": ENGINE_START_SETTLE_S,
+    "engine_idle_torque_fraction": ENGINE_IDLE_TORQUE_FRACTION,
     "steady_window_s": STEADY_WINDOW_S,
     "steady_settle_s": STEADY_SETTLE_S,
     "steady_min_duration_s": STEADY_MIN_DURATION_S,
@@ -185,6 +215,8 @@ DEFAULTS: dict[str, float] = {
     "out_of_range_high_fraction": OUT_OF_RANGE_HIGH_FRACTION,
     "out_of_range_smooth_s": OUT_OF_RANGE_SMOOTH_S,
     "out_of_range_merge_gap_s": OUT_OF_RANGE_MERGE_GAP_S,
+    "availability_merge_gap_s": AVAILABILITY_MERGE_GAP_S,
+    "availability_min_duration_s": AVAILABILITY_MIN_DURATION_S,
     "time_step_factor": TIME_STEP_FACTOR,
     "time_gap_factor": TIME_GAP_FACTOR,
 }

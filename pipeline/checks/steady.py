@@ -11,6 +11,9 @@ practice: the steady-state criteria of engine mapping, with no published numbers
 
 from __future__ import annotations
 
+from collections.abc import Mapping
+from typing import Any
+
 import numpy as np
 import pandas as pd
 
@@ -45,11 +48,15 @@ def rolling_mean_std(
     return r.mean().to_numpy(), r.std().to_numpy()
 
 
-def steady_mask(frame: pd.DataFrame, settings: dict) -> tuple[np.ndarray, np.ndarray]:
-    """Steady mask (bool per row) and steady intervals as inclusive row-index pairs."""
+def steady_mask(
+    frame: pd.DataFrame, settings: Mapping[str, Any], running: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
+    """Steady mask (bool per row) and steady intervals as inclusive row-index pairs; only
+    samples where the engine is ``running`` (when given) can be steady: a stopped engine
+    holds speed and torque perfectly still."""
     time = frame["time"].to_numpy(dtype=float)
     n = len(time)
-    raw = np.ones(n, dtype=bool)
+    raw = np.ones(n, dtype=bool) if running is None else np.asarray(running, dtype=bool).copy()
     used = 0
     for name, key in STEADY_QUANTITIES.items():
         if name not in frame:

@@ -73,6 +73,12 @@ SPAN_STYLE: dict[str, dict[str, Any]] = {
         "edgecolor": "#909090",
         "label": "data gap",
     },
+    "engine_off": {
+        "facecolor": "#e4e4e4",
+        "hatch": "..",
+        "edgecolor": "#808080",
+        "label": "engine off",
+    },
 }
 SEVERITY_STYLE: dict[str, dict[str, Any]] = {
     "error": {"facecolor": "#f4a582", "label": "flagged: error"},

@@ -419,20 +419,35 @@ def instrument_verdicts(res: ResultFile) -> list[Verdict]:
                  end_s=float(t[-1]) if t.size else float("nan"))
 
 
+#: Most lines per check in the notes and flag lists of the summaries (all are in /flags).
+NOTES_PER_CHECK = 3
+
+
 def availability_notes(res: ResultFile) -> list[str]:
-    """One sentence per data-availability flag (gap, analyzers not sampling, clock)."""
+    """Sentences on data availability (gaps, analyzers not sampling, engine stops, clock): at
+    most :data:`NOTES_PER_CHECK` per check, then how many more there are."""
     flags = res.flags
     if not len(flags):
         return []
     notes = []
-    for _, row in flags[flags["check"].astype(str).isin(AVAILABILITY_CHECKS)].iterrows():
-        a, b = float(row["start_s"]), float(row["end_s"])
+    avail = flags[flags["check"].astype(str).isin(AVAILABILITY_CHECKS)]
+    for check, rows in avail.groupby(avail["check"].astype(str), sort=False):
         what = {
             "data_gap": "No data (logger gap)",
             "analyzer_not_sampling": "Analyzers not sampling exhaust (zero/span/purge)",
+            "engine_off": "Engine off",
             "time_irregular": "Irregular time stamps",
-        }[str(row["check"])]
-        notes.append(f"{what} from {clock(res, a)} to {clock(res, b)} ({duration_text(b - a)}).")
+        }.get(check, check)
+        for a, b in zip(rows["start_s"].head(NOTES_PER_CHECK), rows["end_s"].head(NOTES_PER_CHECK),
+                        strict=True):
+            a, b = float(a), float(b)
+            notes.append(
+                f"{what} from {clock(res, a)} to {clock(res, b)} ({duration_text(b - a)})."
+            )
+        if len(rows) > NOTES_PER_CHECK:
+            total = float((rows["end_s"] - rows["start_s"]).sum())
+            notes.append(f"... and {len(rows) - NOTES_PER_CHECK} more {check} intervals "
+                         f"({duration_text(total)} in all; see /flags).")
     return notes
 
 

@@ -21,6 +21,7 @@ import numpy as np
 
 from ..atomic import atomic_path
 from ..checks.verdicts import headline
+from ..instruments import AVAILABILITY_CHECKS
 from ..result import ResultFile, provenance
 from . import reportdata as rd
 
@@ -47,6 +48,21 @@ def _clean(v: Any) -> Any:
     return v
 
 
+#: Most flags of one check listed in the JSON summary (the result file holds them all).
+JSON_FLAGS_PER_CHECK = 20
+
+
+def _listed_flags(flags: Any) -> Any:
+    """The flags the summaries list: instrument findings first, then data availability, each
+    in time order, at most :data:`JSON_FLAGS_PER_CHECK` of one check."""
+    if not len(flags):
+        return flags
+    avail = flags["check"].astype(str).isin(AVAILABILITY_CHECKS).to_numpy()
+    ordered = flags.assign(_a=avail).sort_values(["_a", "start_s"], kind="stable")
+    ordered = ordered.groupby("check", sort=False).head(JSON_FLAGS_PER_CHECK)
+    return ordered.drop(columns="_a")
+
+
 def build_summary(
     res: ResultFile, figures: list[Path] | None = None, skipped: dict[str, str] | None = None
 ) -> dict[str, Any]:
@@ -55,7 +71,7 @@ def build_summary(
     pts = rd.steady_point_stats(res)
     verdicts = rd.instrument_verdicts(res)
     flags = []
-    for _, row in res.flags.iterrows():
+    for _, row in _listed_flags(res.flags).iterrows():
         flags.append(
             {
                 "start_s": float(row["start_s"]),
@@ -85,6 +101,9 @@ def build_summary(
             "verdicts": [{**v.as_dict(), "sentence": v.evidence} for v in verdicts],
             "availability": rd.availability_notes(res),
             "flags": flags,
+            "flag_counts": {str(k): int(v) for k, v in
+                            res.flags["check"].astype(str).value_counts().items()},
+            "flags_total": int(len(res.flags)),
             "key_numbers": rd.key_numbers(res, pts),
             "figures": [p.name for p in figures or []],
             "skipped_figures": dict(skipped or {}),
@@ -156,6 +175,10 @@ def key_lines(s: dict[str, Any]) -> list[str]:
     return lines
 
 
+def _counts_text(s: dict[str, Any]) -> str:
+    return ", ".join(f"{n} {k}" for k, n in s.get("flag_counts", {}).items())
+
+
 def _flag_rows(s: dict[str, Any]) -> list[list[str]]:
     rows = []
     for f in s["flags"][:MAX_FLAG_ROWS]:
@@ -182,8 +205,9 @@ def markdown(s: dict[str, Any]) -> str:
     if s["flags"]:
         out += ["| from | to | check | suspect | severity | value |", "|---|---|---|---|---|---|"]
         out += ["| " + " | ".join(r) + " |" for r in _flag_rows(s)]
-        if len(s["flags"]) > MAX_FLAG_ROWS:
-            out.append(f"\n{len(s['flags']) - MAX_FLAG_ROWS} more flags in the JSON summary.")
+        if s["flags_total"] > MAX_FLAG_ROWS:
+            out.append(f"\n{s['flags_total'] - MAX_FLAG_ROWS} more flags in the result file "
+                       "(/flags); counts by check: " + _counts_text(s) + ".")
         out += ["", "Messages:", ""]
         out += [f"{i + 1}. {f['message']}" for i, f in enumerate(s["flags"][:MAX_FLAG_ROWS])]
     else:
@@ -287,8 +311,9 @@ def write_pdf(s: dict[str, Any], path: Path) -> Path:
     if s["flags"]:
         p.table(["from", "to", "check", "suspect", "severity", "value"], _flag_rows(s),
                 [0.85, 0.85, 1.65, 2.2, 0.8, 0.7])
-        if len(s["flags"]) > MAX_FLAG_ROWS:
-            p.text(f"{len(s['flags']) - MAX_FLAG_ROWS} more flags in the JSON summary.",
+        if s["flags_total"] > MAX_FLAG_ROWS:
+            p.text(f"{s['flags_total'] - MAX_FLAG_ROWS} more flags in the result file: "
+                   + _counts_text(s) + ".",
                    size=8)
     else:
         p.text("No flags.", size=8.5)
