@@ -156,6 +156,28 @@ def _row(
     return row
 
 
+#: Brake-specific results (g/kWh) are left out (NaN) for a steady point whose mean brake
+#: power is below this fraction of the highest point's: at idle the work is near zero and the
+#: ratio grows without meaning [1] (common practice: maps report BSFC from a few % load up).
+BS_MIN_POWER_FRACTION = 0.03
+
+
+def _no_brake_specific_near_zero_power(table: pd.DataFrame) -> None:
+    """NaN for the brake-specific columns of points near zero power (in place)."""
+    if "brake_power" not in table or len(table) < 2:
+        return
+    power = table["brake_power"].to_numpy(dtype=float)
+    points = table["label"].to_numpy() != "night"
+    top = np.nanmax(np.where(points, power, np.nan), initial=0.0) if points.any() else 0.0
+    with np.errstate(invalid="ignore"):
+        low = points & ~(power >= BS_MIN_POWER_FRACTION * top)
+    if not low.any():
+        return
+    for col in table.columns:
+        if col == "bsfc_g_per_kWh" or "_g_per_kWh" in col:
+            table.loc[low, col] = np.nan
+
+
 def emissions_table(
     series: pd.DataFrame,
     intervals: Sequence[tuple[str, float, float]],
@@ -189,5 +211,6 @@ def emissions_table(
         rows.append(_row(label, series, mask, dt, fuel, verification, corrected, span))
     rows.append(_row("night", series, valid, dt, fuel, verification, corrected))
     table = pd.DataFrame(rows)
+    _no_brake_specific_near_zero_power(table)
     table.attrs["units"] = {c: UNITS[c] for c in table.columns if c in UNITS}
     return table

@@ -1,0 +1,89 @@
+"""Nights shaped like real cell exports: engine stops, mixed logging rates, rollover files.
+
+The fixtures start from a clean forward-model night and are then edited by hand the way a
+real log looks (engine stopped with the bench still sampling room air, the wide-band sensor
+reading its "in air" value, the fuel meter's zero scatter); what the checks must do there is
+common practice: a stopped engine is not an instrument fault.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from conftest import SAMPLE_CONFIG
+
+from pipeline import process_run
+from pipeline.states import ENGINE_OFF, ENGINE_STARTING
+from pipeline.testing.cell_b3 import METADATA, cell_b3_scenario
+from pipeline.testing.simulate import make_night, write_csv
+
+#: Two stops of the invented night: (start h, length s).
+STOPS = ((1.2, 1200.0), (2.6, 900.0))
+
+
+def _with_stops(log: pd.DataFrame, rng: np.random.Generator) -> pd.DataFrame:
+    """Engine stopped: 0 rpm and torque, the fuel meter's zero scatter, a trickle of draught
+    through the air meter, room air at the analyzers (about 400 umol/mol CO2, 20.9 % O2), the
+    wide-band sensor at its in-air value 32.767 (common practice for such sensors). The
+    exhaust left in the pipes and sample line washes out over a few minutes (time constant
+    60 s), so the analyzers read falling CO2 and rising O2 while nothing burns."""
+    log = log.copy()
+    t = log["time"].to_numpy()
+    for start_h, length in STOPS:
+        off = (t >= start_h * 3600) & (t < start_h * 3600 + length)
+        k = int(off.sum())
+        i0 = int(np.flatnonzero(off)[0])
+        co2_0, o2_0 = float(log["co2_dry"].iloc[i0 - 1]), float(log["o2_dry"].iloc[i0 - 1])
+        wash = np.exp(-(t[off] - t[i0]) / 60.0)
+        log.loc[off, "engine_speed"] = 0.0
+        log.loc[off, "engine_torque"] = rng.normal(0.0, 0.3, k).round(1)
+        log.loc[off, "fuel_flow"] = rng.normal(0.004, 0.003, k).round(3)
+        log.loc[off, "air_flow"] = rng.normal(1.5, 0.4, k).round(1)
+        log.loc[off, "co2_dry"] = (0.041 + (co2_0 - 0.041) * wash
+                                   + rng.normal(0, 0.002, k)).round(3)
+        log.loc[off, "co_dry"] = rng.normal(2.0, 1.0, k).round(0)
+        log.loc[off, "o2_dry"] = (20.93 - (20.93 - o2_0) * wash
+                                  + rng.normal(0, 0.02, k)).round(3)
+        log.loc[off, "nox_dry"] = rng.normal(0.5, 0.5, k).round(0)
+        log.loc[off, "thc_hot"] = rng.normal(3.0, 1.0, k).round(1)
+        log.loc[off, "lambda_wb"] = 32.767
+    return log
+
+
+@pytest.fixture(scope="module")
+def stop_night(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    sc = dataclasses.replace(cell_b3_scenario(), duration_h=4.0, faults=[], cal_windows=[],
+                             dropouts=[], line_heater_trips=[], seed=11)
+    log, _ = make_night(sc)
+    log = _with_stops(log, np.random.default_rng(3))
+    path = tmp_path_factory.mktemp("stops") / "stops.csv"
+    write_csv(log, path, units=log.attrs["units"], metadata=METADATA)
+    return path
+
+
+def test_engine_stops_are_no_instrument_fault(stop_night: Path) -> None:
+    res = process_run(stop_night, SAMPLE_CONFIG)
+    verdicts = res.tables["verdicts"]
+    assert set(verdicts["status"]) == {"ok"}, verdicts[["instrument", "line"]]
+    flags = res.flags
+    assert list(flags["check"]).count("engine_off") == len(STOPS)
+    assert len(flags) < 20
+    t = res.series["time"].to_numpy()
+    state = res.series["engine_state"].to_numpy()
+    for start_h, length in STOPS:
+        inside = (t >= start_h * 3600 + 5) & (t < start_h * 3600 + length - 5)
+        assert (state[inside] == ENGINE_OFF).all()
+        after = (t > start_h * 3600 + length + 5) & (t < start_h * 3600 + length + 60)
+        assert (state[after] == ENGINE_STARTING).all()
+        # no lambda where the engine is off: the estimates mean nothing there
+        for name in ("lambda_flow", "lambda_carbon", "lambda_oxygen"):
+            assert np.isnan(res.series[name].to_numpy()[inside]).all(), name
+    # no steady point of a stopped engine, and no brake-specific value of one
+    pts = res.tables["steady_points"]
+    assert (pts["speed_mean"] > 500).all()
+    em = res.tables["emissions"]
+    assert (em["bsfc_g_per_kWh"].dropna() < 1000).all()
