@@ -160,7 +160,7 @@ def process_run(
     checked = run_checks(
         frame, bal.derived, settings, has_sensor="lambda_sensor" in frame,
         start_time=run.meta.start_time, logged=run.frame, sampling_state=bal.sampling_state,
-        engine_state=state,
+        engine_state=state, update_rows=run.meta.update_rows,
     )
     progress("results")
     return _assemble(cfg, run, frame, state, alignment, bal, corrected, checked)

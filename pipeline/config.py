@@ -100,7 +100,9 @@ class InputOptions:
     encoding: str | None = None
     units_row: bool | None = None
     timezone: str | None = None
-    raster_s: float | None = None  # MDF: the common time raster (default: fastest channel)
+    # the common time raster [s] for every format (MDF default: its fastest channel; other
+    # formats default: the file's own rows)
+    raster_s: float | None = None
 
 
 @dataclass(frozen=True)

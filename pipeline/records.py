@@ -113,8 +113,10 @@ class RunMeta:
     run (UTC) when the log gives one; rows_read: data rows in the file; rows_dropped: rows
     removed (each counted with its reason in ``warnings``); units_in: unit string used per
     quantity; columns_in: logger column per quantity; bad_cells: non-numeric cells turned into
-    NaN, per quantity; missing_cells: empty cells (or missing markers) per quantity;
-    warnings: plain-sentence notes for the console and the result file.
+    NaN, per quantity; missing_cells: empty cells (or missing markers) per quantity, not
+    counting those a slow channel holds its value over; warnings: plain-sentence notes for
+    the console and the result file; update_rows: for channels logged at a lower rate than
+    the file, the rows between their updates.
     """
 
     source: Path
@@ -128,6 +130,7 @@ class RunMeta:
     missing_cells: dict[str, int] = field(default_factory=dict)
     metadata: dict[str, str] = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
+    update_rows: dict[str, int] = field(default_factory=dict)
 
 
 @dataclass

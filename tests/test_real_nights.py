@@ -87,3 +87,51 @@ def test_engine_stops_are_no_instrument_fault(stop_night: Path) -> None:
     assert (pts["speed_mean"] > 500).all()
     em = res.tables["emissions"]
     assert (em["bsfc_g_per_kWh"].dropna() < 1000).all()
+
+
+#: Columns the (invented) analyzer bench writes at 1 Hz into the 10 Hz log.
+BENCH = ("co2_dry", "co_dry", "o2_dry", "nox_dry", "thc_hot")
+
+
+def test_a_1hz_bench_in_a_10hz_log_is_held_not_a_gap(tmp_path: Path) -> None:
+    # Common practice of merged logs: the slow device's cells stay empty between its
+    # updates. A real silence of the bench (40 s) is still one gap.
+    sc = dataclasses.replace(cell_b3_scenario(), duration_h=1.5, rate_hz=10.0, faults=[],
+                             cal_windows=[], dropouts=[], line_heater_trips=[], seed=5)
+    log, _ = make_night(sc)
+    rows = np.arange(len(log))
+    for col in BENCH:
+        log[col] = log[col].astype(object)
+        log.loc[rows % 10 != 3, col] = ""
+    silent = (log["time"] >= 2400.0) & (log["time"] < 2440.0)
+    for col in BENCH:
+        log.loc[silent, col] = ""
+    path = tmp_path / "mixed.csv"
+    write_csv(log, path, units=log.attrs["units"], metadata=METADATA)
+    res = process_run(path, SAMPLE_CONFIG)
+    gaps = res.flags[res.flags["check"] == "data_gap"]
+    assert len(gaps) == 1, gaps
+    assert 2395.0 <= gaps["start_s"].iloc[0] <= 2401.0 and gaps["end_s"].iloc[0] >= 2439.0
+    assert set(res.tables["verdicts"]["status"]) == {"ok"}
+    co2 = res.series["co2"].to_numpy()
+    assert np.isfinite(co2[(res.series["time"] > 100) & (res.series["time"] < 2000)]).all()
+    assert any("every 10th row" in w for w in res.attrs["warnings"])
+
+
+def test_raster_s_puts_a_text_log_on_the_configured_raster(tmp_path: Path) -> None:
+    # [input] raster_s holds for every format: a 1 Hz text log on a 2 s raster.
+    sc = dataclasses.replace(cell_b3_scenario(), duration_h=0.5, faults=[], cal_windows=[],
+                             dropouts=[], line_heater_trips=[], seed=8)
+    log, _ = make_night(sc)
+    path = tmp_path / "n.csv"
+    write_csv(log, path, units=log.attrs["units"], metadata=METADATA)
+    text = SAMPLE_CONFIG.read_text().replace("[input]", "[input]\nraster_s = 2.0", 1)
+    assert "raster_s = 2.0" in text
+    cfg = tmp_path / "c.toml"
+    cfg.write_text(text)
+    res = process_run(path, cfg)
+    t = res.series["time"].to_numpy()
+    assert np.allclose(np.diff(t), 2.0) and t.size == 901
+    # linear between the rows: the value at 2 s is the logged row at 2 s
+    np.testing.assert_allclose(res.series["fuel_mass_flow"].to_numpy()[1],
+                               float(log["fuel_flow"].iloc[2]), rtol=1e-12)

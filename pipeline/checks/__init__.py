@@ -188,6 +188,7 @@ def run_checks(
     logged: pd.DataFrame | None = None,
     sampling_state: np.ndarray | None = None,
     engine_state: np.ndarray | None = None,
+    update_rows: Mapping[str, int] | None = None,
 ) -> ChecksResult:
     """Steady points, residuals, disagreement, drift, attribution, every flag of the night
     and the verdict per instrument.
@@ -208,6 +209,8 @@ def run_checks(
     engine_state: :func:`pipeline.states.engine_state` per sample: steady points, residual
         checks and range checks use running samples only; each stop is an ``engine_off``
         interval.
+    update_rows: rows between the updates of channels logged at a lower rate than the file
+        (``RunMeta.update_rows``), for ``data_gap``.
     """
     s = resolve_settings(settings)
     typed = settings if isinstance(settings, CheckSettings) else None
@@ -252,7 +255,8 @@ def run_checks(
     rows += _drift_flags(blocks, results, noise, lam, s, clock)
     rows += out_of_range_flags(frame, s["ranges"], s, judged_gases=on & _sampling(derived, n))
     rows += time_irregular_flags(time, s)
-    rows += _availability_flags(frame, derived, logged, sampling_state, engine_state, s, typed)
+    rows += _availability_flags(frame, derived, logged, sampling_state, engine_state, s, typed,
+                                update_rows)
     flags = make_flags(rows)
     if len(flags):
         flags = flags.sort_values(["start_s", "check"], kind="stable").reset_index(drop=True)
@@ -294,6 +298,7 @@ def _availability_flags(
     engine_state: np.ndarray | None,
     s: Mapping[str, Any],
     settings: CheckSettings | None,
+    update_rows: Mapping[str, int] | None = None,
 ) -> list[Flag]:
     """Gaps (in the data as logged), analyzers not sampling, condensation risk, invalid
     alternative lambda methods (:mod:`.availability`)."""
@@ -303,7 +308,8 @@ def _availability_flags(
     if logged is not None:
         essential = [c for c in ("fuel_mass_flow", "air_mass_flow", *GASES) if c in logged]
         out += gap_flags(
-            logged["time"].to_numpy(dtype=float), {c: logged[c].to_numpy() for c in essential}
+            logged["time"].to_numpy(dtype=float), {c: logged[c].to_numpy() for c in essential},
+            update_rows=update_rows,
         )
     fuel_on = np.nan_to_num(_column(frame, "fuel_mass_flow", n), nan=0.0) > 0
     on = running(engine_state) & fuel_on if engine_state is not None else fuel_on

@@ -120,6 +120,7 @@ def gap_flags(
     *,
     gap_factor: float = 3.0,
     min_samples: int = 3,
+    update_rows: Mapping[str, int] | None = None,
 ) -> list[Flag]:
     """``data_gap`` flags for runs of missing values and for holes in the time base.
 
@@ -128,7 +129,8 @@ def gap_flags(
     become one flag whose ``suspect`` lists them, ``|``-separated. A step in time larger than
     ``gap_factor`` times the median step is a gap of the logger itself (suspect ``time``).
     Runs shorter than ``min_samples`` are not flagged here (single bad cells are counted and
-    reported by ingest). value: the gap's length [s].
+    reported by ingest); for a channel logged at a lower rate (``update_rows``: rows between
+    its updates) a gap must last three of its own intervals. value: the gap's length [s].
     """
     t = np.asarray(time, dtype=float)
     n = t.size
@@ -137,7 +139,8 @@ def gap_flags(
         s, e = runs(~np.isfinite(np.asarray(values, dtype=float)))
         if s.size == n and n:  # channel entirely empty: reported by ingest, not as a gap
             continue
-        long_enough = (e - s + 1) >= min_samples
+        need = max(min_samples, 3 * int((update_rows or {}).get(name, 1)))
+        long_enough = (e - s + 1) >= need
         for a, b in zip(s[long_enough], e[long_enough], strict=True):
             if a == 0 and b == n - 1:
                 continue

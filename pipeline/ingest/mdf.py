@@ -37,13 +37,7 @@ import pandas as pd
 from ..config import Config, InputOptions
 from ..errors import ConfigError, InputDataError
 from ..records import RunData
-from .table import Source, build_run
-
-#: Raster points beyond this are refused (a raster too fine for the file's time span).
-MAX_RASTER_POINTS = 50_000_000
-
-#: A hole in a channel longer than this many of its median intervals is not bridged.
-GAP_FACTOR = 2.5
+from .table import MAX_RASTER_ROWS, Source, build_run, resample
 
 INSTALL_HINT = "install the mdf extra: pip install 'dynoqc[mdf]'"
 
@@ -58,44 +52,6 @@ def import_asammdf(path: Path) -> Any:
             f"{INSTALL_HINT}."
         ) from None
     return asammdf
-
-
-def resample(
-    ts: np.ndarray, values: np.ndarray, grid: np.ndarray, hold: bool
-) -> np.ndarray:
-    """Values of one channel on ``grid`` (vectorised): linear or previous-sample hold, NaN
-    outside the channel's span and inside holes longer than GAP_FACTOR median intervals."""
-    ts = np.asarray(ts, dtype=np.float64)
-    v = np.asarray(values, dtype=np.float64)
-    out = np.full(grid.shape, np.nan)
-    if ts.size == 0:
-        return out
-    if ts.size == 1:
-        out[grid == ts[0]] = v[0]
-        return out
-    inside = (grid >= ts[0]) & (grid <= ts[-1])
-    g = grid[inside]
-    right = np.searchsorted(ts, g, side="right")  # first sample after g
-    left = np.clip(right - 1, 0, ts.size - 1)
-    if hold:
-        r = v[left]
-    else:
-        finite = np.isfinite(v)
-        if finite.all():
-            r = np.interp(g, ts, v)
-        else:  # never interpolate across a missing sample
-            r = np.interp(g, ts, np.where(finite, v, 0.0))
-            nxt = np.clip(right, 0, ts.size - 1)
-            on_sample = ts[left] == g
-            r = np.where(on_sample, v[left], np.where(finite[left] & finite[nxt], r, np.nan))
-    d = np.diff(ts)
-    step = float(np.median(d[d > 0])) if (d > 0).any() else 0.0
-    if step > 0:
-        nxt = np.clip(right, 0, ts.size - 1)
-        hole = (ts[nxt] - ts[left]) > GAP_FACTOR * step
-        r = np.where(hole & (ts[left] != g), np.nan, r)
-    out[inside] = r
-    return out
 
 
 class _Occurrence:
@@ -193,7 +149,7 @@ def _raster_grid(
             "channel); set [input] raster_s to choose another."
         )
     n = int(np.floor((t1 - t0) / raster + 1e-9)) + 1
-    if n > MAX_RASTER_POINTS:
+    if n > MAX_RASTER_ROWS:
         raise InputDataError(
             f"{path}: a raster of {raster:g} s over {t1 - t0:g} s gives {n} rows; set a "
             "coarser [input] raster_s."

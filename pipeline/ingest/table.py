@@ -427,6 +427,52 @@ def _screen(meta: RunMeta, q: str, name: str, values: np.ndarray) -> np.ndarray:
     return values
 
 
+#: A hole in a channel longer than this many of its median intervals is not bridged.
+GAP_FACTOR = 2.5
+
+
+def resample(
+    ts: np.ndarray, values: np.ndarray, grid: np.ndarray, hold: bool
+) -> np.ndarray:
+    """Values of one channel on ``grid`` (vectorised): linear or previous-sample hold, NaN
+    outside the channel's span and inside holes longer than GAP_FACTOR median intervals."""
+    ts = np.asarray(ts, dtype=np.float64)
+    v = np.asarray(values, dtype=np.float64)
+    out = np.full(grid.shape, np.nan)
+    if ts.size == 0:
+        return out
+    if ts.size == 1:
+        out[grid == ts[0]] = v[0]
+        return out
+    inside = (grid >= ts[0]) & (grid <= ts[-1])
+    g = grid[inside]
+    right = np.searchsorted(ts, g, side="right")  # first sample after g
+    left = np.clip(right - 1, 0, ts.size - 1)
+    if hold:
+        r = v[left]
+    else:
+        finite = np.isfinite(v)
+        if finite.all():
+            r = np.interp(g, ts, v)
+        else:  # never interpolate across a missing sample
+            r = np.interp(g, ts, np.where(finite, v, 0.0))
+            nxt = np.clip(right, 0, ts.size - 1)
+            on_sample = ts[left] == g
+            r = np.where(on_sample, v[left], np.where(finite[left] & finite[nxt], r, np.nan))
+    d = np.diff(ts)
+    step = float(np.median(d[d > 0])) if (d > 0).any() else 0.0
+    if step > 0:
+        nxt = np.clip(right, 0, ts.size - 1)
+        hole = (ts[nxt] - ts[left]) > GAP_FACTOR * step
+        r = np.where(hole & (ts[left] != g), np.nan, r)
+    out[inside] = r
+    return out
+
+
+#: Most rows a configured raster may make.
+MAX_RASTER_ROWS = 50_000_000
+
+
 def build_run(src: Source, config: Config) -> RunData:
     """Map, convert and check the columns of ``src`` into a :class:`RunData`.
 
@@ -456,16 +502,18 @@ def build_run(src: Source, config: Config) -> RunData:
     for q, p in positions.items():
         if p != iso_pos:
             _count_cells(meta, q, src.names[p], cols[p])
-    _report_missing(meta)
 
     if iso_pos is not None:
         t_sec = _iso_seconds(src, config, raw[tpos], meta)
     else:
         t_sec = _elapsed_seconds(src, config, cols[tpos], convs["time"], meta)
     values = _channel_values(src, channels, positions, cols, convs, iso_pos, meta)
+    _hold_slow_channels(values, meta)
+    _report_missing(meta)
     t_new, rows = _time_policy(t_sec, meta)
     _report_zero_fuel(meta, values, t_new, rows)
 
+    raster = config.input.raster_s if src.kind != "MDF" else None  # MDF: resampled on load
     out: dict[str, np.ndarray] = {"time": t_new}
     whole = rows.size == t_sec.size  # every row kept, in order: no need to copy the columns
     for q in (q for q in INPUTS if q in channels and q != "time"):
@@ -478,7 +526,34 @@ def build_run(src: Source, config: Config) -> RunData:
             if q == "thc" and ch.carbon_number != 1:
                 v *= ch.carbon_number
             out[q] = np.full(rows.size, v)
+    if raster:
+        out = _on_raster(out, float(raster), meta)
     return RunData(frame=columns_frame(out), meta=meta)
+
+
+#: Channels that are states, not measurements: held, never interpolated, on a raster.
+HELD_CHANNELS = ("analyzer_mode",)
+
+
+def _on_raster(out: dict[str, np.ndarray], raster: float, meta: RunMeta) -> dict[str, np.ndarray]:
+    """Every channel on the regular time base ``[input] raster_s`` (:func:`resample`: linear
+    for measurements, held for states, NaN across holes)."""
+    t = out["time"]
+    if t.size < 2:
+        return out
+    n = int(np.floor((t[-1] - t[0]) / raster + 1e-9)) + 1
+    if n > MAX_RASTER_ROWS:
+        raise ConfigError(
+            f"[input] raster_s = {raster:g} s over {t[-1] - t[0]:g} s gives {n} rows; choose "
+            "a coarser raster."
+        )
+    grid = t[0] + raster * np.arange(n, dtype=np.float64)
+    meta.warnings.append(
+        f"Resampled from {t.size} rows to the configured raster of {raster:g} s ({n} rows)."
+    )
+    return {"time": grid} | {
+        q: resample(t, v, grid, q in HELD_CHANNELS) for q, v in out.items() if q != "time"
+    }
 
 
 def _locate_columns(src: Source, channels: dict[str, Channel], meta: RunMeta) -> dict[str, int]:
@@ -649,6 +724,46 @@ def _channel_values(
             v = v * channels[q].carbon_number
         values[q] = _screen(meta, q, src.names[p], np.asarray(v, dtype=np.float64))
     return values
+
+
+#: A channel is slow (logged at its own, lower rate into a faster file) when at most this
+#: fraction of its cells hold values ...
+SLOW_MAX_FILLED = 0.7
+#: ... and at least this fraction of the steps between its values are one common step of
+#: two or more rows (common practice: a 1 Hz bench merged into a 10 Hz log).
+SLOW_REGULAR_FRACTION = 0.8
+
+
+def _hold_slow_channels(values: dict[str, np.ndarray], meta: RunMeta) -> None:
+    """Channels logged at a lower rate than the file (values on every k-th row, empty cells
+    between) hold each value until their next update, for at most k - 1 rows: a longer
+    silence stays missing, and counts as a gap only when it lasts several of the channel's own
+    intervals (``meta.update_rows``). In place; noted in ``meta``."""
+    for q, v in values.items():
+        finite = np.isfinite(v)
+        n_fin = int(finite.sum())
+        if n_fin < 3 or n_fin > SLOW_MAX_FILLED * v.size:
+            continue
+        idx = np.flatnonzero(finite)
+        steps = np.diff(idx)
+        k = int(np.median(steps))
+        if k < 2 or np.mean(steps == k) < SLOW_REGULAR_FRACTION:
+            continue
+        last = np.maximum.accumulate(np.where(finite, np.arange(v.size), -1))
+        hold = ~finite & (last >= 0) & (np.arange(v.size) - last < k)
+        v[hold] = v[last[hold]]
+        meta.update_rows[q] = k
+        if q in meta.missing_cells:
+            meta.missing_cells[q] = max(0, meta.missing_cells[q] - int(hold.sum()))
+    if meta.update_rows:
+        by_k: dict[int, list[str]] = {}
+        for q, k in meta.update_rows.items():
+            by_k.setdefault(k, []).append(f"'{meta.columns_in.get(q, q)}'")
+        for k, names in sorted(by_k.items()):
+            meta.warnings.append(
+                f"{', '.join(names)} hold a value on every {k}th row only (logged at a lower "
+                "rate); each value is held until the next update."
+            )
 
 
 def _time_policy(t_sec: np.ndarray, meta: RunMeta) -> tuple[np.ndarray, np.ndarray]:
