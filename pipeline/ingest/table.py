@@ -730,8 +730,10 @@ def _channel_values(
 #: fraction of its cells hold values ...
 SLOW_MAX_FILLED = 0.7
 #: ... and at least this fraction of the steps between its values are one common step of
-#: two or more rows (common practice: a 1 Hz bench merged into a 10 Hz log).
+#: two or more rows (common practice: a 1 Hz bench merged into a 10 Hz log) ...
 SLOW_REGULAR_FRACTION = 0.8
+#: ... over at least this many updates (fewer say nothing about a rate).
+SLOW_MIN_UPDATES = 20
 
 
 def _hold_slow_channels(values: dict[str, np.ndarray], meta: RunMeta) -> None:
@@ -742,7 +744,7 @@ def _hold_slow_channels(values: dict[str, np.ndarray], meta: RunMeta) -> None:
     for q, v in values.items():
         finite = np.isfinite(v)
         n_fin = int(finite.sum())
-        if n_fin < 3 or n_fin > SLOW_MAX_FILLED * v.size:
+        if n_fin < SLOW_MIN_UPDATES or n_fin > SLOW_MAX_FILLED * v.size:
             continue
         idx = np.flatnonzero(finite)
         steps = np.diff(idx)
@@ -751,7 +753,9 @@ def _hold_slow_channels(values: dict[str, np.ndarray], meta: RunMeta) -> None:
             continue
         last = np.maximum.accumulate(np.where(finite, np.arange(v.size), -1))
         hold = ~finite & (last >= 0) & (np.arange(v.size) - last < k)
+        v = v.copy()  # the column may be a read-only view of the parser's buffer
         v[hold] = v[last[hold]]
+        values[q] = v
         meta.update_rows[q] = k
         if q in meta.missing_cells:
             meta.missing_cells[q] = max(0, meta.missing_cells[q] - int(hold.sum()))
