@@ -8,7 +8,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
@@ -24,9 +24,9 @@ from .balance.tables import emissions_table
 from .checks import CheckSettings, ChecksResult, run_checks
 from .checks.verdicts import console_lines
 from .config import Config, load_config
-from .ingest import read_run
+from .ingest import read_joined, read_run
 from .quantities import DERIVED, GASES, INPUTS
-from .records import ProcessResult, RunData, columns_frame
+from .records import ProcessResult, RunData, RunMeta, columns_frame
 from .states import ENGINE_STATE_ATTRS, engine_state, running
 
 
@@ -37,6 +37,21 @@ def run_stem(path: Path) -> str:
         if name.lower().endswith(suffix):
             name = name[: -len(suffix)]
     return name or path.stem
+
+
+def _safe_stem(name: str) -> str:
+    """A night name usable as a file name (path separators and odd characters as ``_``)."""
+    import re
+
+    return re.sub(r"[^\w.\-]+", "_", name).strip("._") or "night"
+
+
+def night_name(cfg: Config, meta: RunMeta) -> str:
+    """The night's name in titles and file names: the file's own name; for joined rollover
+    files ``[run] name`` when the config gives one, else the first file's name."""
+    if "joined_files" in meta.metadata and cfg.run_name != cfg.path.stem:
+        return cfg.run_name
+    return run_stem(meta.source)
 
 
 def _series_attrs(config: Config, run: RunData) -> dict[str, dict[str, Any]]:
@@ -82,8 +97,9 @@ def _emissions(
 def _provenance(cfg: Config, run: RunData, notes: list[str]) -> dict[str, Any]:
     """Root attributes of the result file: tool, source file, config, fuel, input notes."""
     meta = run.meta
+    name = night_name(cfg, meta)
     attrs: dict[str, Any] = {
-        "title": f"dynoqc result: {cfg.run_name}",
+        "title": f"dynoqc result: {name}",
         "tool_name": "dynoqc",
         "tool_version": __version__,
         "created_utc": datetime.now(UTC).isoformat(timespec="seconds").replace("+00:00", "Z"),
@@ -92,7 +108,8 @@ def _provenance(cfg: Config, run: RunData, notes: list[str]) -> dict[str, Any]:
         "config_file": cfg.path.name,
         "config_toml": cfg.to_toml(),
         "config_sha256": cfg.sha256(),
-        "run_name": cfg.run_name,
+        "run_name": name,
+        "config_run_name": cfg.run_name,
         "run_description": cfg.description,
         "fuel": cfg.fuel.properties(),
         "fuel_name": cfg.fuel.name,
@@ -135,19 +152,22 @@ def _noop(stage: str) -> None:
 
 
 def process_run(
-    run_path: str | Path,
+    run_path: str | Path | Sequence[str | Path],
     config: str | Path | Config,
     *,
     progress: Callable[[str], None] = _noop,
 ) -> ProcessResult:
     """Process one logged night: ingest -> align -> balance -> checks. No files are written.
 
-    ``progress`` is called with each stage name of :data:`STAGES` as it starts.
+    ``run_path``: the night's file, or the rollover files of one night (joined in the order
+    of their clocks, :func:`pipeline.ingest.read_joined`). ``progress`` is called with each
+    stage name of :data:`STAGES` as it starts.
     """
     cfg = config if isinstance(config, Config) else load_config(config)
     settings = CheckSettings.from_config(cfg)
     progress("reading")
-    run = read_run(Path(run_path), cfg)
+    paths = [Path(p) for p in ([run_path] if isinstance(run_path, str | Path) else run_path)]
+    run = read_run(paths[0], cfg) if len(paths) == 1 else read_joined(paths, cfg)
     state = engine_state(run.frame, settings)
     progress("aligning")
     frame, alignment = align(run.frame, settings)
@@ -228,7 +248,7 @@ class NightOutcome:
 
 
 def process_to_files(
-    run_path: str | Path,
+    run_path: str | Path | Sequence[str | Path],
     config: str | Path | Config,
     out_dir: str | Path,
     *,
@@ -242,14 +262,16 @@ def process_to_files(
     from .report import render_report
     from .report.hdf5 import stored_series, write_result
 
-    run_path = Path(run_path)
+    joined = not isinstance(run_path, str | Path)
+    paths = [Path(p) for p in run_path] if joined else [Path(run_path)]  # type: ignore[union-attr]
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
-    result = process_run(run_path, config, progress=progress)
+    result = process_run(paths if joined else paths[0], config, progress=progress)
     progress("writing")
-    h5 = write_result(out_dir / f"{run_stem(run_path)}.h5", result, threads=write_threads)
+    stem = _safe_stem(str(result.attrs["run_name"])) if joined else run_stem(paths[0])
+    h5 = write_result(out_dir / f"{stem}.h5", result, threads=write_threads)
     progress("report")
     # Figures and summary are rebuilt from the result file alone (its time series taken from
     # memory, where they are exactly the values just written).
     outputs = render_report(h5, out_dir, plots=plots, series=stored_series(result))
-    return NightOutcome(run=run_path, result_file=h5, figures=outputs, result=result)
+    return NightOutcome(run=paths[0], result_file=h5, figures=outputs, result=result)

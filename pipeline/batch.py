@@ -103,7 +103,7 @@ def up_to_date(result: Path, source_sha256: str, config_sha256: str, version: st
 
 
 def process_night(
-    run: str,
+    run: str | Sequence[str],
     config_path: str,
     out_dir: str,
     plots: bool = True,
@@ -125,20 +125,25 @@ def process_night(
     from .console import night_summary
 
     t0 = time.perf_counter()
-    path = Path(run)
-    rep = NightReport(run=str(path), status="failed")
+    joined = [Path(r) for r in run] if not isinstance(run, str) else None
+    path = joined[0] if joined else Path(run)
+    rep = NightReport(run=" + ".join(str(p) for p in joined) if joined else str(path),
+                      status="failed")
     try:
         cfg = load_config(config_path)
         result = Path(out_dir) / f"{run_stem(path)}.h5"
-        if not path.is_file():
-            raise DynoqcError(f"{path}: no such file.")
-        if not force and up_to_date(result, file_sha256(path), cfg.sha256(), __version__):
+        for p in joined or [path]:
+            if not p.is_file():
+                raise DynoqcError(f"{p}: no such file.")
+        if joined:
+            pass  # rollover files are always processed (their joined digest needs the read)
+        elif not force and up_to_date(result, file_sha256(path), cfg.sha256(), __version__):
             rep.status, rep.result_file = "skipped", str(result)
             rep.message = "unchanged input, config and tool version; result kept (--force to redo)"
             rep.lines = [f"{path.name} -> {result}  (skipped: {rep.message})"]
             return rep
         outcome = process_to_files(
-            path, cfg, out_dir, plots=plots, write_threads=write_threads,
+            joined or path, cfg, out_dir, plots=plots, write_threads=write_threads,
             **({"progress": progress} if progress else {}),
         )
         res = outcome.result

@@ -73,10 +73,14 @@ def main() -> None:
               help="Send the nights to a Dask distributed cluster (needs the cluster extra).")
 @click.option("--force", is_flag=True,
               help="Redo nights whose input, config and tool version are unchanged.")
+@click.option("--join", is_flag=True,
+              help="RUNS are the rollover files of one night: join them in the order of their "
+              "clocks into one result.")
 @click.option("--no-progress", is_flag=True, help="No progress bar on stderr.")
 @click.option("--debug", is_flag=True, help="Show tracebacks of errors.")
 def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: bool, jobs: int,
-            scheduler: str | None, force: bool, no_progress: bool, debug: bool) -> None:
+            scheduler: str | None, force: bool, join: bool, no_progress: bool,
+            debug: bool) -> None:
     """Process logged night(s) RUNS (files, folders or glob patterns) into OUT/<run>.h5 plus
     figures and a summary; with several nights also OUT/dynoqc_index.csv and .json."""
     from .batch import expand_inputs, run_batch, write_index
@@ -104,7 +108,12 @@ def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: b
     batch = run_batch(paths, config_path, out_dir, plots=not no_plots, force=force,
                       jobs=jobs, scheduler=scheduler, debug=debug)
     def run_all() -> None:
-        if len(paths) == 1 and not no_progress and sys.stderr.isatty():
+        if join:
+            from .batch import process_night
+
+            consume([process_night([str(p) for p in paths], str(config_path), str(out_dir),
+                                   not no_plots, force, debug)])
+        elif len(paths) == 1 and not no_progress and sys.stderr.isatty():
             consume(_single_night_with_progress(paths[0], config_path, out_dir, not no_plots,
                                                 force, debug))
         elif show:
@@ -124,7 +133,7 @@ def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: b
         _fail("interrupted; no partial result was left behind.", 130)
     except DynoqcError as exc:
         _fail(str(exc), exc.exit_code)
-    if len(paths) > 1:
+    if len(paths) > 1 and not join:
         csv_path, json_path = write_index(reports, out_dir)
         done = sum(r.status == "processed" for r in reports)
         skipped = sum(r.status == "skipped" for r in reports)

@@ -135,3 +135,48 @@ def test_raster_s_puts_a_text_log_on_the_configured_raster(tmp_path: Path) -> No
     # linear between the rows: the value at 2 s is the logged row at 2 s
     np.testing.assert_allclose(res.series["fuel_mass_flow"].to_numpy()[1],
                                float(log["fuel_flow"].iloc[2]), rtol=1e-12)
+
+
+def _split_night(log: pd.DataFrame, folder: Path, hours: float) -> list[Path]:
+    """The night as the logger's rollover files: a new file every ``hours``, each with its
+    own start time line and its elapsed time from 0 (how such loggers write them)."""
+    from datetime import datetime, timedelta
+
+    start = datetime.fromisoformat(METADATA["start_time"].replace("Z", "+00:00"))
+    t = log["time"].to_numpy()
+    paths = []
+    for k, t0 in enumerate(np.arange(0.0, t[-1], hours * 3600.0)):
+        part = log[(t >= t0) & (t < t0 + hours * 3600.0)].copy()
+        part["time"] = part["time"] - t0
+        meta = dict(METADATA, start_time=(start + timedelta(seconds=float(t0))).isoformat())
+        path = folder / f"night_part{k + 1}.csv"
+        write_csv(part, path, units=log.attrs["units"], metadata=meta)
+        paths.append(path)
+    return paths
+
+
+def test_rollover_files_joined_find_the_drift_across_files(tmp_path: Path) -> None:
+    # The demo night's CO2 span drift (-4 % from 03:10 UTC over 2 h) split over five 2 h
+    # files: each file alone has its own baseline; joined, the drift is found across them.
+    from click.testing import CliRunner
+
+    from pipeline.cli import main
+    from pipeline.result import read_result
+
+    log, _ = make_night(cell_b3_scenario())
+    parts = _split_night(log, tmp_path, 2.0)
+    shuffled = [str(p) for p in (parts[3], parts[0], parts[4], parts[2], parts[1])]
+    out = tmp_path / "out"
+    r = CliRunner().invoke(main, ["process", *shuffled, "--join", "--config",
+                                  str(SAMPLE_CONFIG), "--out", str(out), "--no-plots"])
+    assert r.exit_code == 0, r.output
+    # one result, named after the config's [run] name (the first file's name without one)
+    res = read_result(out / "cell_b3_2026-03-14.h5")
+    t = res.timeseries["time"].to_numpy()
+    assert t[0] == 0.0 and t[-1] == pytest.approx(10 * 3600.0 - 1.0)
+    v = res.tables["verdicts"].set_index("instrument")
+    assert v.loc["co2", "status"] == "suspect"
+    onset_h = v.loc["co2", "onset_s"] / 3600.0
+    assert abs(onset_h - (6.0 + 10.0 / 60.0)) < 0.5
+    assert "5 rollover files joined" in " ".join(res.attrs["warnings"])
+    assert res.attrs["run_name"] == "cell_b3_2026-03-14"

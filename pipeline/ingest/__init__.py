@@ -13,9 +13,12 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
 
+import numpy as np
+import pandas as pd
+
 from ..config import Config, InputOptions
 from ..errors import InputDataError
-from ..records import RunData
+from ..records import RunData, RunMeta
 from .delimited import read_csv_run
 from .sniff import MISSING_MARKERS, Layout, sniff
 from .table import PHYSICAL_LIMITS, Source, monotone_time, split_name_unit
@@ -140,3 +143,74 @@ def open_source(path: Path, options: InputOptions | None = None) -> Iterator[Sou
         from .delimited import csv_source
 
         yield csv_source(path, sniff(path, options))
+
+
+def read_joined(paths: list[Path], config: Config) -> RunData:
+    """Read rollover files of one night (the logger split it) as one run.
+
+    Each file is read with :func:`read_run`; the files are put in the order of their clocks
+    (absolute start times, which each file must give), their rows on one time base from the
+    first file's start. Rows of a file that overlap the previous file's span are dropped (the
+    earlier file's are kept); gaps between files are noted and become ``data_gap`` flags.
+    ``meta.sha256`` is the SHA-256 of the files' own digests in that order (each file's digest
+    is in ``meta.metadata["joined_files"]``).
+    """
+    import hashlib
+    import json
+
+    runs = [read_run(Path(p), config) for p in paths]
+    missing = [r.meta.source.name for r in runs if r.meta.start_time is None]
+    if missing:
+        raise InputDataError(
+            f"--join needs the absolute start time of every file, to put them in order; "
+            f"{', '.join(missing)} give(s) none (add a start_time metadata line or ISO 8601 "
+            "time stamps)."
+        )
+    runs.sort(key=lambda r: r.meta.start_time)
+    t0 = runs[0].meta.start_time
+    frames: list[pd.DataFrame] = []
+    notes: list[str] = []
+    end = -np.inf
+    for r in runs:
+        offset = (r.meta.start_time - t0).total_seconds()
+        f = r.frame.copy()
+        f["time"] = f["time"].to_numpy() + offset
+        t = f["time"].to_numpy()
+        overlap = t <= end
+        if overlap.any():
+            notes.append(f"{r.meta.source.name} overlaps the previous file by "
+                         f"{end - t[0]:.1f} s; its {int(overlap.sum())} overlapping row(s) "
+                         "were dropped (the earlier file's rows are kept).")
+            f = f[~overlap]
+        elif frames and t.size and t[0] - end > 0:
+            step = float(np.median(np.diff(t))) if t.size > 1 else 0.0
+            if t[0] - end > 3.0 * step:
+                notes.append(f"{t[0] - end:.1f} s without rows between the previous file "
+                             f"and {r.meta.source.name}.")
+        if len(f):
+            end = max(end, float(f["time"].iloc[-1]))
+            frames.append(f)
+    frame = pd.concat(frames, ignore_index=True)
+    meta = runs[0].meta
+    digest = hashlib.sha256("".join(r.meta.sha256 for r in runs).encode()).hexdigest()
+    joined = RunMeta(
+        source=meta.source,
+        sha256=digest,
+        start_time=t0,
+        rows_read=sum(r.meta.rows_read for r in runs),
+        rows_dropped=sum(r.meta.rows_read for r in runs) - len(frame),
+        units_in=dict(meta.units_in),
+        columns_in=dict(meta.columns_in),
+        bad_cells={q: sum(r.meta.bad_cells.get(q, 0) for r in runs)
+                   for q in {k for r in runs for k in r.meta.bad_cells}},
+        missing_cells={q: sum(r.meta.missing_cells.get(q, 0) for r in runs)
+                       for q in {k for r in runs for k in r.meta.missing_cells}},
+        metadata={**meta.metadata, "joined_files": json.dumps(
+            [{"file": r.meta.source.name, "sha256": r.meta.sha256,
+              "start_utc": r.meta.start_time.isoformat()} for r in runs])},
+        warnings=[f"{len(runs)} rollover files joined into one night: "
+                  + ", ".join(r.meta.source.name for r in runs) + "."]
+        + [f"{r.meta.source.name}: {w}" for r in runs for w in r.meta.warnings] + notes,
+        update_rows=dict(meta.update_rows),
+    )
+    return RunData(frame=frame, meta=joined)
