@@ -37,7 +37,8 @@ _RUN_KEYS = {"name", "description"}
 _FUEL_KEYS = {
     "preset", "blend", "h_c", "o_c", "s_c", "n_c", "c", "lhv_MJ_per_kg", "density_kg_per_m3"
 }
-_INPUT_KEYS = {"delimiter", "decimal", "encoding", "units_row", "timezone", "raster_s"}
+_INPUT_KEYS = {"delimiter", "decimal", "encoding", "units_row", "timezone", "raster_s",
+               "standard_temperature_degC", "standard_pressure_kPa"}
 _CHANNEL_KEYS = {"column", "value", "unit", "basis", "carbon_number", "format", "range"}
 _SAMPLING_KEYS = {
     "dryer_dewpoint_degC",
@@ -103,6 +104,19 @@ class InputOptions:
     # the common time raster [s] for every format (MDF default: its fastest channel; other
     # formats default: the file's own rows)
     raster_s: float | None = None
+    # reference state of standard volume flows of air (scfm, Sm3/h); default 60 degF, 1 atm
+    standard_temperature_degC: float | None = None
+    standard_pressure_kPa: float | None = None
+
+    @property
+    def standard_state(self) -> tuple[float, float]:
+        """(degC, kPa) of standard volume flows (units.STANDARD_* when not configured)."""
+        from .units import STANDARD_PRESSURE_KPA, STANDARD_TEMPERATURE_DEGC
+
+        t = self.standard_temperature_degC
+        p = self.standard_pressure_kPa
+        return (STANDARD_TEMPERATURE_DEGC if t is None else t,
+                STANDARD_PRESSURE_KPA if p is None else p)
 
 
 @dataclass(frozen=True)
@@ -464,19 +478,34 @@ def _parse_drift_correction(
     return DriftCorrection(**options, gases=gases)
 
 
-def _check_units(channels: dict[str, Channel], fuel: Fuel, path: Path) -> None:
-    """Each channel's unit must be a known spelling of its quantity's dimension."""
-    from .units import conversion
+def _check_units(
+    channels: dict[str, Channel], fuel: Fuel, path: Path, inp: InputOptions | None = None
+) -> None:
+    """Each channel's unit must be a known spelling of its quantity's dimension, and a basis
+    written in it must agree with the channel's ``basis``; every bad unit in one error."""
+    from .units import conversion, split_basis
 
+    problems = []
     for name, ch in channels.items():
         if (name == "time" and ch.format == "iso8601") or (
             ch.unit == UNIT_FROM_FILE and ch.column is not None
         ):
             continue
         try:
-            conversion(ch.unit, name, f"[channels.{name}] unit", fuel.density_kg_per_m3)
+            conversion(ch.unit, name, f"[channels.{name}] unit", fuel.density_kg_per_m3,
+                       inp.standard_state if inp is not None else None)
         except ConfigError as exc:
-            raise ConfigError(f"{path}: {exc}") from None
+            problems.append(str(exc))
+            continue
+        _, basis = split_basis(ch.unit)
+        if basis is not None and ch.basis is not None and basis != ch.basis:
+            problems.append(f"[channels.{name}] unit '{ch.unit}' says {basis}, but basis = "
+                            f"\"{ch.basis}\"; make them agree.")
+    if len(problems) == 1:
+        raise ConfigError(f"{path}: {problems[0]}")
+    if problems:
+        raise ConfigError(f"{path}: {len(problems)} units are not right:\n  - "
+                          + "\n  - ".join(problems))
 
 
 def _check_checks(checks: dict[str, Any], path: Path) -> None:
@@ -492,16 +521,8 @@ def _check_checks(checks: dict[str, Any], path: Path) -> None:
         raise ConfigError(f"{path}: {exc}") from None
 
 
-def parse_config(raw: dict[str, Any], path: Path) -> Config:
-    """Validate a parsed TOML document and resolve defaults."""
-    _check_keys(raw, _TOP_KEYS, "the top level", path)
-    run = raw.get("run", {})
-    _check_keys(run, _RUN_KEYS, "[run]", path)
-    if "fuel" not in raw:
-        raise ConfigError(f"{path}: missing [fuel] table (preset = \"...\" or h_c = ...).")
-    fuel = _parse_fuel(raw["fuel"], path)
-
-    inp = raw.get("input", {})
+def _parse_input(inp: Any, path: Path) -> InputOptions:
+    """The ``[input]`` table: how to read the logger file."""
     _check_keys(inp, _INPUT_KEYS, "[input]", path)
     if "decimal" in inp and inp["decimal"] not in (".", ","):
         raise ConfigError(f"{path}: [input] decimal must be \".\" or \",\".")
@@ -530,7 +551,30 @@ def parse_config(raw: dict[str, Any], path: Path) -> Config:
         raster = _number(inp["raster_s"], "[input] raster_s", path)
         if not raster > 0:
             raise ConfigError(f"{path}: [input] raster_s must be positive, got {raster!r}.")
-    input_opts = InputOptions(**inp)
+    if "standard_temperature_degC" in inp:
+        t_std = _number(inp["standard_temperature_degC"], "[input] standard_temperature_degC",
+                        path)
+        if not -50.0 <= t_std <= 50.0:
+            raise ConfigError(f"{path}: [input] standard_temperature_degC must be between -50 "
+                              f"and 50 degC, got {t_std!r}.")
+    if "standard_pressure_kPa" in inp:
+        p_std = _number(inp["standard_pressure_kPa"], "[input] standard_pressure_kPa", path)
+        if not 50.0 <= p_std <= 150.0:
+            raise ConfigError(f"{path}: [input] standard_pressure_kPa must be between 50 and "
+                              f"150 kPa, got {p_std!r}.")
+    return InputOptions(**inp)
+
+
+def parse_config(raw: dict[str, Any], path: Path) -> Config:
+    """Validate a parsed TOML document and resolve defaults."""
+    _check_keys(raw, _TOP_KEYS, "the top level", path)
+    run = raw.get("run", {})
+    _check_keys(run, _RUN_KEYS, "[run]", path)
+    if "fuel" not in raw:
+        raise ConfigError(f"{path}: missing [fuel] table (preset = \"...\" or h_c = ...).")
+    fuel = _parse_fuel(raw["fuel"], path)
+
+    input_opts = _parse_input(raw.get("input", {}), path)
 
     channels_raw = raw.get("channels")
     if not isinstance(channels_raw, dict) or not channels_raw:
@@ -552,7 +596,7 @@ def parse_config(raw: dict[str, Any], path: Path) -> Config:
     if "ambient_humidity" in channels and "intake_humidity" in channels:
         raise ConfigError(f"{path}: give either ambient_humidity or intake_humidity, not both.")
 
-    _check_units(channels, fuel, path)
+    _check_units(channels, fuel, path, input_opts)
 
     samp = raw.get("sampling", {})
     _check_keys(samp, _SAMPLING_KEYS, "[sampling]", path)

@@ -17,7 +17,19 @@ Conversion factors are exact definitions unless noted:
 - 1 mmHg = 133.322387415 Pa and 1 inHg = 3386.389 Pa (conventional values, NIST SP 811,
   2008, Appendix B.8);
 - T/K = t/degC + 273.15 (SI definition); t/degC = (t/degF - 32) / 1.8 (definition of the
-  Fahrenheit scale).
+  Fahrenheit scale);
+- 1 grain = 1/7000 lb (same agreement), so 1 gr/lb = 1/7 g/kg;
+- 1 ft3 = 0.028316846592 m3 (from the foot); a standard or normal volume flow of air is a
+  mass flow at the air density of its reference state, rho = p M_air / (R T) (ideal gas;
+  M_air of dry air, REFERENCES 1.1; R = 8.314462618 J/(mol K), CODATA 2018). The reference
+  states are the config's ``[input] standard_temperature_degC`` / ``standard_pressure_kPa``
+  (default 60 degF and 101.325 kPa, the usual US "standard" for scfm) for ``scfm`` and
+  ``Sm3/h``, and 0 degC, 101.325 kPa (DIN 1343 "normal") for ``Nm3/h``.
+
+A basis written inside the unit (``%vol dry``, ``ppm wet``, ``ppm (dry)``) is accepted; it must
+agree with the channel's ``basis`` (:func:`split_basis`). Gauge pressures (``psig``, ``kPag``,
+``barg``, ``mbarg``) convert to the gauge reading in kPa and are flagged ``gauge``: ingest adds
+the ambient pressure.
 """
 
 from __future__ import annotations
@@ -30,6 +42,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .constants import P_STD_KPA
 from .errors import ConfigError
 from .quantities import INPUTS
 
@@ -51,6 +64,7 @@ class Conversion:
     quantity: str
     scale: float
     offset: float = 0.0
+    gauge: bool = False  # a gauge pressure: the ambient pressure must be added
 
     def __call__(self, values: np.ndarray) -> np.ndarray:
         """Convert ``values`` (in ``self.unit``) to the canonical unit of ``self.quantity``."""
@@ -110,6 +124,9 @@ _DIMENSION_NAMES = {
     "humidity_ratio": "a humidity ratio",
     "code": "a status code",
     "volume_flow": "a volume flow",
+    "gauge_pressure": "a gauge pressure",
+    "air_volume_flow": "a standard volume flow of air",
+    "air_normal_flow": "a normal volume flow of air",
 }
 
 # Accepted spellings per dimension: spelling -> (scale, offset) to the canonical unit.
@@ -129,10 +146,14 @@ _TABLE: dict[str, dict[str, tuple[float, float]]] = {
         "kN.m": (1e3, 0.0), "kNm": (1e3, 0.0),
         "lbf.ft": (_LBF * _FT, 0.0), "lbf ft": (_LBF * _FT, 0.0), "ft.lbf": (_LBF * _FT, 0.0),
         "lb.ft": (_LBF * _FT, 0.0), "ft.lb": (_LBF * _FT, 0.0),
+        "lb-ft": (_LBF * _FT, 0.0), "ft-lb": (_LBF * _FT, 0.0), "lbf-ft": (_LBF * _FT, 0.0),
+        "ft-lbf": (_LBF * _FT, 0.0),
     },
     "mass_flow": {
         "kg/h": (1.0, 0.0), "g/s": (3.6, 0.0), "kg/s": (3600.0, 0.0), "kg/min": (60.0, 0.0),
         "g/h": (1e-3, 0.0), "g/min": (0.06, 0.0), "lb/h": (_LB, 0.0), "lb/min": (60.0 * _LB, 0.0),
+        "lb/hr": (_LB, 0.0), "lbm/h": (_LB, 0.0), "lbm/hr": (_LB, 0.0), "pph": (_LB, 0.0),
+        "lb/s": (3600.0 * _LB, 0.0),
     },
     "fraction": {
         "mol/mol": (1.0, 0.0), "%": (1e-2, 0.0), "%vol": (1e-2, 0.0), "vol%": (1e-2, 0.0),
@@ -156,17 +177,66 @@ _TABLE: dict[str, dict[str, tuple[float, float]]] = {
         "psia": (_LBF / _IN**2 / 1e3, 0.0), "inHg": (3.386389, 0.0),
         "mmHg": (0.133322387415, 0.0),
     },
+    # gauge readings (to kPa above ambient); ingest adds the ambient pressure
+    "gauge_pressure": {
+        "psig": (_LBF / _IN**2 / 1e3, 0.0), "kPag": (1.0, 0.0), "kPa(g)": (1.0, 0.0),
+        "kPa gauge": (1.0, 0.0), "barg": (100.0, 0.0), "bar(g)": (100.0, 0.0),
+        "mbarg": (0.1, 0.0), "hPag": (0.1, 0.0), "inH2O": (0.24908891, 0.0),
+        "mmH2O": (0.00980665, 0.0),
+    },
     "relative_humidity": {
         "%": (1.0, 0.0), "%RH": (1.0, 0.0), "% RH": (1.0, 0.0), "percent": (1.0, 0.0),
         "-": (100.0, 0.0), "1": (100.0, 0.0), "fraction": (100.0, 0.0),
     },
-    "humidity_ratio": {"g/kg": (1.0, 0.0), "kg/kg": (1e3, 0.0)},
+    "humidity_ratio": {
+        "g/kg": (1.0, 0.0), "kg/kg": (1e3, 0.0), "gr/lb": (1000.0 / 7000.0, 0.0),
+        "grains/lb": (1000.0 / 7000.0, 0.0), "g/kg dry air": (1.0, 0.0),
+    },
+    # air by standard/normal volume (m3/h at the reference state, then times its density)
+    "air_volume_flow": {
+        "scfm": (_FT**3 * 60.0, 0.0), "SCFM": (_FT**3 * 60.0, 0.0),
+        "scfh": (_FT**3, 0.0), "Sm3/h": (1.0, 0.0),
+    },
+    "air_normal_flow": {"Nm3/h": (1.0, 0.0), "Nm3/min": (60.0, 0.0)},
     # Volumetric fuel flow, to m3/h (then times the fuel density).
     "volume_flow": {
         "l/min": (60e-3, 0.0), "l/h": (1e-3, 0.0), "ml/min": (60e-6, 0.0),
         "ml/s": (3.6e-3, 0.0), "m3/h": (1.0, 0.0),
     },
 }
+
+#: Gas constant [J/(mol K)], CODATA 2018 (exact since the 2019 SI).
+R_GAS = 8.314462618
+
+#: Default reference state of standard volume flows: 60 degF, 101.325 kPa (common US practice
+#: for scfm; state your cell's in [input] standard_temperature_degC / standard_pressure_kPa).
+STANDARD_TEMPERATURE_DEGC = (60.0 - 32.0) / 1.8
+STANDARD_PRESSURE_KPA = P_STD_KPA
+#: Reference state of normal volume flows (Nm3): 0 degC, 101.325 kPa (DIN 1343).
+NORMAL_TEMPERATURE_DEGC = 0.0
+NORMAL_PRESSURE_KPA = P_STD_KPA
+
+
+def air_density(temperature_degc: float, pressure_kpa: float) -> float:
+    """Density of dry air [kg/m3] at a reference state, ideal gas rho = p M / (R T)."""
+    from .constants import M_AIR
+
+    return pressure_kpa * 1e3 * M_AIR * 1e-3 / (R_GAS * (temperature_degc + 273.15))
+
+
+_BASIS_RE = re.compile(r"^(?P<unit>.*?)[\s,;]*[\(\[]?\s*(?P<basis>dry|wet)\s*[\)\]]?\s*$",
+                       re.IGNORECASE)
+
+
+def split_basis(unit: str) -> tuple[str, str | None]:
+    """``("%vol", "dry")`` for ``"%vol dry"``; ``(unit, None)`` when no basis is written in it.
+    (``"g/kg dry air"`` is a humidity unit, not a basis.)"""
+    text = "" if unit is None else str(unit)
+    m = _BASIS_RE.match(text)
+    if m is None or not m.group("unit").strip() or text.strip().lower().endswith("dry air"):
+        return text, None
+    return m.group("unit").strip(), m.group("basis").lower()
+
 
 # Spellings whose letter case carries the meaning (MPa vs mPa): matched only as written.
 _CASE_SENSITIVE = {"MPa"}
@@ -228,6 +298,10 @@ def accepted_units(quantity: str) -> list[str]:
     units = [u for u in _TABLE[dim] if quantity == "thc" or u not in ("ppmC", "ppmC1")]
     if quantity == "fuel_mass_flow":
         units += [f"{u} (with [fuel] density_kg_per_m3)" for u in _TABLE["volume_flow"]]
+    if quantity == "air_mass_flow":
+        units += list(_TABLE["air_volume_flow"]) + list(_TABLE["air_normal_flow"])
+    if dim == "pressure":
+        units += list(_TABLE["gauge_pressure"])  # gauge: ingest adds the ambient pressure
     return [repr(u) if u == "" else u for u in units]
 
 
@@ -242,21 +316,29 @@ def is_known_unit(unit: str) -> bool:
 
 
 def conversion(
-    unit: str, quantity: str, where: str, density_kg_per_m3: float | None = None
+    unit: str,
+    quantity: str,
+    where: str,
+    density_kg_per_m3: float | None = None,
+    standard_state: tuple[float, float] | None = None,
 ) -> Conversion:
     """The linear conversion from ``unit`` to the canonical unit of ``quantity``.
 
     ``where`` names the place of the unit for messages (a config key or a column).
     ``density_kg_per_m3`` (the fuel density) is needed only for a volumetric fuel flow unit
-    such as ``l/min``. Raises ConfigError for an unknown unit or one of the wrong dimension,
-    naming the unit, the quantity, ``where`` and the accepted spellings.
+    such as ``l/min``; ``standard_state`` (degC, kPa) is the reference state of standard
+    volume flows of air (``scfm``), default :data:`STANDARD_TEMPERATURE_DEGC`. A basis
+    written in the unit (``%vol dry``) is left out here (:func:`split_basis`). Raises
+    ConfigError for an unknown unit or one of the wrong dimension, naming the unit, the
+    quantity, ``where`` and the accepted spellings.
     """
     if quantity not in _DIMENSION:
         raise ConfigError(f"{where}: unknown quantity '{quantity}'.")
     dim = _DIMENSION[quantity]
     canonical = INPUTS[quantity].unit
     unit = "" if unit is None else str(unit)
-    hit = _lookup(unit, dim)
+    bare, _ = split_basis(unit) if dim == "fraction" else (unit, None)
+    hit = _lookup(bare, dim)
     if hit is not None:
         if quantity == "thc" or _key(hit).lower() not in ("ppmc", "ppmc1"):
             scale, offset = _TABLE[dim][hit]
@@ -265,6 +347,16 @@ def conversion(
             f"{where}: unit '{unit}' (ppm of carbon atoms) applies to thc only, not to "
             f"{quantity}; use ppm, % or mol/mol."
         )
+    if dim == "pressure" and (g := _lookup(unit, "gauge_pressure")) is not None:
+        return Conversion(unit, quantity, _TABLE["gauge_pressure"][g][0], 0.0, gauge=True)
+    if quantity == "air_mass_flow":
+        for table, default in (("air_volume_flow", standard_state or (
+                STANDARD_TEMPERATURE_DEGC, STANDARD_PRESSURE_KPA)),
+                ("air_normal_flow", (NORMAL_TEMPERATURE_DEGC, NORMAL_PRESSURE_KPA))):
+            v = _lookup(unit, table)
+            if v is not None:
+                rho = air_density(*default)
+                return Conversion(unit, quantity, _TABLE[table][v][0] * rho, 0.0)
     vol = _lookup(unit, "volume_flow")
     if vol is not None and quantity == "fuel_mass_flow":
         if density_kg_per_m3 is None or not density_kg_per_m3 > 0:
@@ -292,10 +384,14 @@ def conversion(
 
 
 def converter(
-    unit: str, quantity: str, where: str, density_kg_per_m3: float | None = None
+    unit: str,
+    quantity: str,
+    where: str,
+    density_kg_per_m3: float | None = None,
+    standard_state: tuple[float, float] | None = None,
 ) -> Callable[[np.ndarray], np.ndarray]:
     """A function converting values in ``unit`` to the canonical unit of ``quantity``.
 
     Same arguments and errors as :func:`conversion` (which also exposes scale and offset).
     """
-    return conversion(unit, quantity, where, density_kg_per_m3)
+    return conversion(unit, quantity, where, density_kg_per_m3, standard_state)

@@ -64,3 +64,27 @@ def test_blend_and_methods_and_drift_tables_parse():
     assert cfg.fuel.o_c > 0 and cfg.extra_lambda == ("spindt", "iso16183")
     assert cfg.drift_correction.gases["co2"].span_gas == 12.0
     assert cfg.verification.eps_rC_max == 0.02
+
+
+def test_every_bad_unit_in_one_message_and_a_basis_in_the_unit_must_agree():
+    raw = _minimal()
+    raw["channels"]["fuel_mass_flow"]["unit"] = "lbs per hr"
+    raw["channels"]["co2"]["unit"] = "%vol wet"  # basis = "dry"
+    raw["channels"]["torque"] = {"column": "tq", "unit": "ft-lb"}  # fine
+    with pytest.raises(ConfigError) as exc:
+        parse_config(raw, Path("cell.toml"))
+    text = str(exc.value)
+    assert "2 units are not right" in text
+    assert "fuel_mass_flow" in text and "'lbs per hr'" in text
+    assert "[channels.co2] unit '%vol wet' says wet" in text
+    raw["channels"]["fuel_mass_flow"]["unit"] = "lb/hr"
+    raw["channels"]["co2"]["unit"] = "%vol dry"
+    cfg = parse_config(raw, Path("cell.toml"))
+    assert cfg.channels["co2"].basis == "dry"
+
+
+def test_standard_state_of_volume_flows_is_checked():
+    cfg = parse_config(_minimal(input={"standard_temperature_degC": 20.0}), Path("c.toml"))
+    assert cfg.input.standard_state == (20.0, 101.325)
+    with pytest.raises(ConfigError, match="standard_pressure_kPa must be between"):
+        parse_config(_minimal(input={"standard_pressure_kPa": 14.7}), Path("c.toml"))

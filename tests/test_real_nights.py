@@ -180,3 +180,38 @@ def test_rollover_files_joined_find_the_drift_across_files(tmp_path: Path) -> No
     assert abs(onset_h - (6.0 + 10.0 / 60.0)) < 0.5
     assert "5 rollover files joined" in " ".join(res.attrs["warnings"])
     assert res.attrs["run_name"] == "cell_b3_2026-03-14"
+
+
+def test_us_units_and_a_gauge_exhaust_pressure(tmp_path: Path) -> None:
+    # A US export of the same night: fuel in lb/hr, torque in lb-ft, exhaust back pressure
+    # in psig. Factors: 1 lb = 0.45359237 kg (1959 agreement), 1 lbf.ft = 1.355818 N.m and
+    # 1 psi = 6.894757 kPa (NIST SP 811, 2008). The gauge reading gets the ambient added.
+    sc = dataclasses.replace(cell_b3_scenario(), duration_h=0.5, faults=[], cal_windows=[],
+                             dropouts=[], line_heater_trips=[], seed=9)
+    log, _ = make_night(sc)
+    us = log.copy()
+    us["fuel_flow"] = (log["fuel_flow"] / 0.45359237).round(4)
+    us["engine_torque"] = (log["engine_torque"] / 1.355818).round(2)
+    us["exh_p"] = 2.0
+    units = dict(log.attrs["units"], fuel_flow="lb/hr", engine_torque="lb-ft", exh_p="psig")
+    path = tmp_path / "us.csv"
+    write_csv(us, path, units=units, metadata=METADATA)
+    text = SAMPLE_CONFIG.read_text()
+    text += '\n[channels.exhaust_pressure]\ncolumn = "exh_p"\n'
+    cfg = tmp_path / "us.toml"
+    cfg.write_text(text.replace('unit = "kg/h"', 'unit = "lb/hr"', 1)
+                   .replace('unit = "N.m"', 'unit = "lb-ft"', 1))
+    res = process_run(path, cfg)
+    si = process_run(_si(log, tmp_path), SAMPLE_CONFIG)
+    np.testing.assert_allclose(res.series["fuel_mass_flow"], si.series["fuel_mass_flow"],
+                               rtol=1e-4)
+    np.testing.assert_allclose(res.series["torque"], si.series["torque"], rtol=1e-3, atol=0.01)
+    np.testing.assert_allclose(res.series["exhaust_pressure"],
+                               si.series["ambient_pressure"] + 2.0 * 6.894757, rtol=1e-6)
+    assert any("gauge pressure" in w for w in res.attrs["warnings"])
+
+
+def _si(log: pd.DataFrame, folder: Path) -> Path:
+    path = folder / "si.csv"
+    write_csv(log, path, units=log.attrs["units"], metadata=METADATA)
+    return path

@@ -192,3 +192,50 @@ def test_every_listed_spelling_parses_with_blanks_and_brackets(
     wrapped = conversion(f"{pad}{brackets[0]}{unit}{brackets[1]}{pad}", quantity, "x")
     assert wrapped.same_as(plain)
     assert is_known_unit(unit)
+
+
+# --- US and volumetric units of real cell exports -------------------------------------------
+@pytest.mark.parametrize("unit", ["lb/hr", "lb/h", "lbm/hr", "[lb/hr]"])
+def test_pound_per_hour(unit: str) -> None:
+    # 1 lb = 0.45359237 kg exactly (international yard and pound agreement, 1959).
+    assert conv(unit, "fuel_mass_flow", 10.0) == pytest.approx(4.5359237, rel=1e-15)
+
+
+@pytest.mark.parametrize("unit", ["lb-ft", "ft-lb", "lbf-ft", "ft-lbf"])
+def test_pound_foot_with_a_hyphen(unit: str) -> None:
+    # NIST SP 811 (2008) Appendix B.8: foot pound-force = 1.355818 J.
+    assert conv(unit, "torque", 1.0) == pytest.approx(1.355818, rel=1e-6)
+
+
+def test_grains_per_pound() -> None:
+    # 1 grain = 64.79891 mg, 1 lb = 453.59237 g (1959 agreement): 70 gr/lb = 10 g/kg.
+    assert conv("gr/lb", "intake_humidity", 70.0) == pytest.approx(
+        70 * 64.79891e-3 / 453.59237 * 1e3, rel=1e-9)
+    assert conv("gr/lb", "intake_humidity", 70.0) == pytest.approx(10.0, rel=1e-9)
+
+
+def test_standard_and_normal_volume_flow_of_air() -> None:
+    # Handbook values (from memory): dry air at 0 degC, 101.325 kPa has 1.2922 kg/m3; at
+    # 60 degF and 14.696 psia a standard cubic foot of air weighs about 0.0764 lb.
+    assert conv("Nm3/h", "air_mass_flow", 100.0) == pytest.approx(129.22, rel=5e-4)
+    lb_per_h = conv("SCFM", "air_mass_flow", 1.0) / 0.45359237
+    assert lb_per_h == pytest.approx(0.0764 * 60.0, rel=3e-3)
+    # another reference state, as the config states it: 20 degC, 101.325 kPa (1.2041 kg/m3)
+    c = conversion("scfm", "air_mass_flow", "x", standard_state=(20.0, 101.325))
+    assert c.scale == pytest.approx(1.2041 * 0.3048**3 * 60.0, rel=5e-4)
+
+
+def test_gauge_pressure_is_marked() -> None:
+    # NIST SP 811: 1 psi = 6.894757 kPa; a gauge reading still needs the ambient added.
+    c = conversion("psig", "exhaust_pressure", "x")
+    assert c.gauge and c.scale == pytest.approx(6.894757, rel=1e-6)
+    assert not conversion("psia", "exhaust_pressure", "x").gauge
+
+
+@pytest.mark.parametrize("unit", ["%vol dry", "% dry", "ppm (dry)", "ppm wet", "%vol, wet"])
+def test_a_basis_inside_the_unit(unit: str) -> None:
+    from pipeline.units import split_basis
+
+    bare, basis = split_basis(unit)
+    assert basis in ("dry", "wet") and bare
+    assert conversion(unit, "co2", "x").same_as(conversion(bare, "co2", "x"))

@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from ..config import UNIT_FROM_FILE, Channel, Config
+from ..constants import P_STD_KPA
 from ..errors import ConfigError, InputDataError
 from ..quantities import INPUTS
 from ..records import RunData, RunMeta, columns_frame
@@ -612,6 +613,7 @@ def _conversions(
     """Unit conversion per channel: the config's unit; the file's unit fills in when the
     config left it implicit (noted in ``meta.units_in``)."""
     path, density = src.path, config.fuel.density_kg_per_m3
+    std = config.input.standard_state
     convs: dict[str, Conversion] = {}
     for q, ch in config.channels.items():
         if q == "time" and fmt == "iso8601":
@@ -628,13 +630,15 @@ def _conversions(
                     f"(canonical: {INPUTS[q].unit})."
                 )
             convs[q] = conversion(file_unit, q, f"{path}: column '{col}' ([channels.{q}])",
-                                  density)
+                                  density, std)
+            _file_basis_agrees(path, q, col, file_unit, ch.basis)
             meta.units_in[q] = file_unit
             continue
-        conv = conversion(unit, q, f"[channels.{q}] unit", density)
+        conv = conversion(unit, q, f"[channels.{q}] unit", density, std)
         if file_unit:
             try:
-                fconv = conversion(file_unit, q, f"column '{src.names[positions[q]]}'", density)
+                fconv = conversion(file_unit, q, f"column '{src.names[positions[q]]}'",
+                                   density, std)
             except ConfigError:
                 fconv = None
             if fconv is not None and not ch.unit_given:
@@ -653,6 +657,18 @@ def _conversions(
         convs[q] = conv
         meta.units_in[q] = unit
     return convs
+
+
+def _file_basis_agrees(path: Path, q: str, col: str, unit: str, basis: str | None) -> None:
+    """A basis in the file's unit (``%vol dry``) must agree with the config's ``basis``."""
+    from ..units import split_basis
+
+    _, in_unit = split_basis(unit)
+    if in_unit is not None and basis is not None and in_unit != basis:
+        raise ConfigError(
+            f"{path}: column '{col}' gives unit '{unit}' ({in_unit}), but [channels.{q}] "
+            f"basis = \"{basis}\"; check which is right and make them agree."
+        )
 
 
 def _iso_seconds(src: Source, config: Config, traw: pd.Series, meta: RunMeta) -> np.ndarray:
@@ -722,7 +738,25 @@ def _channel_values(
         v = convs[q](c.values)
         if q == "thc" and channels[q].carbon_number != 1:
             v = v * channels[q].carbon_number
-        values[q] = _screen(meta, q, src.names[p], np.asarray(v, dtype=np.float64))
+        values[q] = np.asarray(v, dtype=np.float64)
+    for q, v in values.items():  # gauge pressures: the ambient pressure is added
+        if convs[q].gauge:
+            amb = values.get("ambient_pressure")
+            if amb is None and channels.get("ambient_pressure") is not None:
+                amb = np.full(v.size, float(convs["ambient_pressure"](
+                    np.float64(channels["ambient_pressure"].value))))
+            if amb is None:
+                amb = np.full(v.size, P_STD_KPA)
+                meta.warnings.append(
+                    f"{q} is logged as a gauge pressure ('{convs[q].unit}') and no "
+                    "ambient_pressure is mapped: 101.325 kPa is added to make it absolute."
+                )
+            else:
+                meta.warnings.append(f"{q} is a gauge pressure ('{convs[q].unit}'); the "
+                                     "ambient pressure is added to make it absolute.")
+            values[q] = v + amb
+    for q in list(values):
+        values[q] = _screen(meta, q, src.names[positions[q]], values[q])
     return values
 
 
