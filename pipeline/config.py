@@ -88,6 +88,7 @@ class Channel:
     carbon_number: float = 1.0  # THC: carbon atoms of the reported basis
     format: str | None = None  # time: "seconds" (default) or "iso8601"
     range: float | None = None  # analyzer full-scale range, in `unit`
+    join_column: str | None = None  # time: a second column (the time of day) joined to column
     #: False when the config left the unit implicit (canonical, or the file's own unit).
     unit_given: bool = field(default=True, compare=False)
 
@@ -231,6 +232,8 @@ class Config:
                  if v is not None and k not in ("quantity", "unit_given")}
             if ch.quantity != "thc":
                 d.pop("carbon_number", None)
+            if d.pop("join_column", None):
+                d["column"] = [ch.column, ch.join_column]
             return d
 
         return {
@@ -364,6 +367,29 @@ def _parse_fuel(table: dict[str, Any], path: Path) -> Fuel:
     )
 
 
+def _parse_column(
+    name: str, table: dict[str, Any], where: str, path: Path
+) -> tuple[str | None, str | None]:
+    """(column, join column): time may join a date and a time-of-day column."""
+    column = None
+    if name == "time" and isinstance(table.get("column"), list):
+        cols = table["column"]
+        if len(cols) != 2 or not all(isinstance(c, str) and c.strip() for c in cols):
+            raise ConfigError(
+                f"{path}: {where} column = [...] joins a date and a time-of-day column: give "
+                f"two column names, e.g. column = [\"Date\", \"Time\"]; got {cols!r}."
+            )
+        return cols[0], cols[1]
+    elif "column" in table:
+        if not isinstance(table["column"], str) or not table["column"].strip():
+            raise ConfigError(
+                f"{path}: {where} column must be the logger's column name as text, e.g. "
+                f"column = \"{name}\"; got {table['column']!r}."
+            )
+        column = table["column"]
+    return column, None
+
+
 def _parse_channel(name: str, table: Any, path: Path) -> Channel:
     where = f"[channels.{name}]"
     if not isinstance(table, dict):
@@ -401,25 +427,26 @@ def _parse_channel(name: str, table: Any, path: Path) -> Channel:
         if carbon_number <= 0:
             raise ConfigError(f"{path}: {where} carbon_number must be positive.")
     fmt = table.get("format")
-    if fmt is not None and (name != "time" or fmt not in ("seconds", "iso8601")):
+    if fmt is not None and (
+        name != "time" or not isinstance(fmt, str)
+        or (fmt not in ("seconds", "iso8601", "clock") and "%" not in fmt)
+    ):
         raise ConfigError(
-            f"{path}: {where} format must be \"seconds\" or \"iso8601\" and applies to time only."
+            f"{path}: {where} format must be \"seconds\", \"iso8601\", \"clock\" (date and "
+            "time of day in a common layout, detected) or a strftime pattern such as "
+            "\"%d.%m.%Y %H:%M:%S\", and applies to time only."
         )
     value = _number(table["value"], f"{where} value", path) if "value" in table else None
     if name == "time" and value is not None:
         raise ConfigError(f"{path}: [channels.time] must name a column, not a value.")
     rng = _number(table["range"], f"{where} range", path) if "range" in table else None
-    column = None
-    if "column" in table:
-        if not isinstance(table["column"], str) or not table["column"].strip():
-            raise ConfigError(
-                f"{path}: {where} column must be the logger's column name as text, e.g. "
-                f"column = \"{name}\"; got {table['column']!r}."
-            )
-        column = table["column"]
+    column, join_column = _parse_column(name, table, where, path)
+    if join_column is not None:
+        fmt = fmt or "clock"
     if not isinstance(unit, str):
         raise ConfigError(f"{path}: {where} unit must be text, e.g. unit = \"{q.unit}\".")
-    return Channel(name, unit, column, value, basis, carbon_number, fmt, rng, "unit" in table)
+    return Channel(name, unit, column, value, basis, carbon_number, fmt, rng,
+                   join_column=join_column, unit_given="unit" in table)
 
 
 def _parse_methods(table: Any, path: Path) -> tuple[str, ...]:
@@ -487,7 +514,7 @@ def _check_units(
 
     problems = []
     for name, ch in channels.items():
-        if (name == "time" and ch.format == "iso8601") or (
+        if (name == "time" and ch.format not in (None, "seconds")) or (
             ch.unit == UNIT_FROM_FILE and ch.column is not None
         ):
             continue

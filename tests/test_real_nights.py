@@ -215,3 +215,56 @@ def _si(log: pd.DataFrame, folder: Path) -> Path:
     path = folder / "si.csv"
     write_csv(log, path, units=log.attrs["units"], metadata=METADATA)
     return path
+
+
+def test_german_export_with_date_and_time_columns_through_the_autumn_change(
+    tmp_path: Path,
+) -> None:
+    # A naive local clock (Europe/Berlin) in two columns, day first, semicolons and decimal
+    # commas, through the night the clocks go back (2026-10-25 03:00 CEST -> 02:00 CET, EU
+    # summer-time rule): the hour 02:00-03:00 is logged twice and no row may be lost.
+    start = "2026-10-24T23:30:00Z"  # 01:30 CEST
+    sc = dataclasses.replace(cell_b3_scenario(), duration_h=2.0, faults=[], cal_windows=[],
+                             dropouts=[], line_heater_trips=[], seed=21, start_time=start)
+    log, _ = make_night(sc)
+    utc = pd.Timestamp(start) + pd.to_timedelta(log["time"], unit="s")
+    local = utc.dt.tz_convert("Europe/Berlin")
+    de = log.drop(columns="time")
+    de.insert(0, "Uhrzeit", local.dt.strftime("%H:%M:%S"))
+    de.insert(0, "Datum", local.dt.strftime("%d.%m.%Y"))
+    units = dict(log.attrs["units"], Datum="", Uhrzeit="")
+    units.pop("time")
+    path = tmp_path / "de.csv"
+    write_csv(de, path, units=units, delimiter=";", decimal=",", metadata={"Prüfstand": "B3"})
+    text = SAMPLE_CONFIG.read_text()
+    text = text.replace('[channels.time]\ncolumn = "time"\nunit = "s"',
+                        '[channels.time]\ncolumn = ["Datum", "Uhrzeit"]')
+    text = text.replace('delimiter = ","', 'delimiter = ";"').replace('decimal = "."',
+                                                                       'decimal = ","')
+    text = text.replace("[input]", '[input]\ntimezone = "Europe/Berlin"', 1)
+    cfg = tmp_path / "de.toml"
+    cfg.write_text(text)
+    res = process_run(path, cfg)
+    t = res.series["time"].to_numpy()
+    assert t.size == len(log)  # the repeated hour is kept, both copies
+    np.testing.assert_allclose(np.diff(t), 1.0)
+    assert res.attrs["start_time_utc"] == "2026-10-24T23:30:00Z"
+    assert not (res.flags["check"] == "data_gap").any()
+    assert any("repeats" in w for w in res.attrs["warnings"])
+    assert set(res.tables["verdicts"]["status"]) == {"ok"}
+
+
+def test_us_start_line_gives_the_start_time(tmp_path: Path) -> None:
+    # "Start: 11/02/2026 9:00:00 PM" (US month/day, 12 h clock) in a local time zone.
+    sc = dataclasses.replace(cell_b3_scenario(), duration_h=0.2, faults=[], cal_windows=[],
+                             dropouts=[], line_heater_trips=[], seed=4)
+    log, _ = make_night(sc)
+    path = tmp_path / "us.csv"
+    write_csv(log, path, units=log.attrs["units"], metadata={"Start": "11/02/2026 9:00:00 PM"})
+    text = SAMPLE_CONFIG.read_text().replace("[input]", '[input]\ntimezone = "America/Detroit"',
+                                             1)
+    cfg = tmp_path / "us.toml"
+    cfg.write_text(text)
+    res = process_run(path, cfg)
+    # 9 PM EST (UTC-5 after 1 Nov 2026) is 02:00 UTC the next day
+    assert res.attrs["start_time_utc"] == "2026-11-03T02:00:00Z"

@@ -223,10 +223,76 @@ def _localize(ts: pd.Series, tz: str | None, where: str, meta: RunMeta) -> pd.Se
         )
         return ts.dt.tz_localize("UTC")
     try:
-        local = ts.dt.tz_localize(tz, ambiguous="NaT", nonexistent="NaT")
+        probe = ts.dt.tz_localize(tz, ambiguous="NaT", nonexistent="NaT")
     except Exception as exc:  # noqa: BLE001 - pandas raises several types for bad zones
         raise ConfigError(f"[input] timezone '{tz}' is not a known time zone ({exc}).") from None
+    ambiguous = (probe.isna() & ts.notna()).to_numpy()
+    if not ambiguous.any():
+        return probe.dt.tz_convert("UTC")
+    # The repeated hour of the autumn change: rows in time order read the hour twice; those
+    # before the clock steps back are summer time (DST), those after it standard time.
+    wall = ts.to_numpy(dtype="datetime64[ns]").astype("int64").astype(np.float64)
+    wall[~ts.notna().to_numpy()] = np.nan
+    back = np.r_[False, np.diff(wall) < 0]
+    steps = np.cumsum(back)
+    first = int(np.flatnonzero(ambiguous)[0])
+    is_dst = ambiguous & (steps == steps[first])
+    local = ts.dt.tz_localize(tz, ambiguous=is_dst, nonexistent="NaT")
+    n_amb = int(ambiguous.sum())
+    meta.warnings.append(
+        f"{where}: {n_amb} row(s) in the hour the clock repeats at the change to standard time "
+        "were placed by the order of the rows (before the step back: summer time)."
+    )
     return local.dt.tz_convert("UTC")
+
+
+#: Common layouts of date and time of day in logger exports, tried in this order: ISO, day
+#: first (German and most European exports), US month first with a 12 h clock and AM/PM.
+CLOCK_FORMATS = (
+    "%Y-%m-%d %H:%M:%S.%f", "%Y-%m-%d %H:%M:%S", "%Y-%m-%d %H:%M",
+    "%d.%m.%Y %H:%M:%S.%f", "%d.%m.%Y %H:%M:%S", "%d.%m.%Y %H:%M",
+    "%d.%m.%y %H:%M:%S",
+    "%m/%d/%Y %I:%M:%S %p", "%m/%d/%Y %I:%M:%S.%f %p", "%m/%d/%Y %I:%M %p",
+    "%m/%d/%Y %H:%M:%S.%f", "%m/%d/%Y %H:%M:%S", "%m/%d/%Y %H:%M",
+    "%d/%m/%Y %H:%M:%S.%f", "%d/%m/%Y %H:%M:%S", "%d/%m/%Y %H:%M",
+    "%Y/%m/%d %H:%M:%S", "%d-%m-%Y %H:%M:%S",
+)
+
+
+def detect_clock_format(cells: list[str]) -> str | None:
+    """The first layout of :data:`CLOCK_FORMATS` that reads every one of ``cells`` (a
+    sample), or None. Between month-first and day-first with ``/`` the cells decide: a day
+    above 12 in either place; ambiguous samples are read month first (US) with a note."""
+    sample = [str(c).strip() for c in cells if str(c).strip()][:200]
+    if not sample:
+        return None
+    ser = pd.Series(sample)
+    for fmt in CLOCK_FORMATS:
+        if pd.to_datetime(ser, format=fmt, errors="coerce").notna().all():
+            return fmt
+    return None
+
+
+def _clock_times(
+    raw: pd.Series, fmt: str, tz: str | None, meta: RunMeta, column: str
+) -> pd.Series:
+    """Date-and-time cells in a common layout (``clock``: detected) or a strftime pattern, to
+    UTC (naive clocks in ``[input] timezone``; NaT where unreadable)."""
+    s = raw.astype(object).where(raw.notna(), None)
+    s = pd.Series(s, dtype=object).str.strip()
+    if fmt == "clock":
+        found = detect_clock_format([str(c) for c in s.dropna().head(200)])
+        if found is None:
+            examples = ", ".join(f"'{c}'" for c in s.dropna().head(3))
+            raise InputDataError(
+                f"{meta.source}: time column '{column}' holds no date and time layout dynoqc "
+                f"knows (e.g. {examples}); give [channels.time] format as a strftime pattern, "
+                "e.g. format = \"%d.%m.%Y %H:%M:%S\"."
+            )
+        fmt = found
+        meta.metadata.setdefault("time_format", fmt)
+    ts = pd.to_datetime(s, format=fmt, errors="coerce")
+    return _localize(ts, tz, f"Time column '{column}'", meta)
 
 
 def _iso_times(raw: pd.Series, tz: str | None, meta: RunMeta, column: str) -> pd.Series:
@@ -257,11 +323,17 @@ def start_from_metadata(
         if key == "date" and "time" in norm and not ISO_RE.fullmatch(value):
             value = f"{value} {norm['time'].strip()}"
         if not ISO_RE.fullmatch(value):
-            meta.warnings.append(
-                f"Metadata '{key}: {value}' is not an ISO 8601 date and time of day; the start "
-                "time of the run is unknown."
-            )
-            return None
+            fmt = detect_clock_format([value])
+            if fmt is None:
+                meta.warnings.append(
+                    f"Metadata '{key}: {value}' is not a date and time of day dynoqc can read "
+                    "(ISO 8601, day.month.year or US month/day/year); the start time of the "
+                    "run is unknown."
+                )
+                return None
+            parsed = _localize(pd.to_datetime(pd.Series([value]), format=fmt, errors="coerce"),
+                               tz, f"Metadata start time '{value}'", meta)
+            return parsed.iloc[0].to_pydatetime()
         ts = pd.Series([value])
         if ISO_OFFSET_RE.search(value):
             parsed = pd.to_datetime(ts, format="ISO8601", utc=True, errors="coerce")
@@ -487,10 +559,17 @@ def build_run(src: Source, config: Config) -> RunData:
         raise ConfigError("[channels.time] must name a column.")
     positions = _locate_columns(src, channels, meta)
     tpos = positions["time"]
+    jpos = _locate(_join_channel(time_ch), src) if time_ch.join_column else None
     fmt = time_ch.format or _time_format_from_cells(src, tpos)
+    if fmt is not None and fmt != "seconds":
+        fmt = "iso8601" if fmt == "iso8601" and jpos is None else fmt
+    text_cols = {tpos} if fmt not in (None, "seconds") else set()
+    if jpos is not None:
+        text_cols.add(jpos)
 
     n_notes = len(src.notes)
-    raw = src.load(sorted(set(positions.values())), {tpos} if fmt == "iso8601" else set())
+    wanted = set(positions.values()) | ({jpos} if jpos is not None else set())
+    raw = src.load(sorted(wanted), text_cols)
     meta.warnings.extend(src.notes[n_notes:])
     meta.rows_read = len(next(iter(raw.values()))) if raw else 0
     if meta.rows_read == 0:
@@ -498,14 +577,19 @@ def build_run(src: Source, config: Config) -> RunData:
     fmt = fmt or _time_format_from_values(raw[tpos])
 
     convs = _conversions(src, config, positions, fmt, meta)
-    iso_pos = tpos if fmt == "iso8601" else None
+    iso_pos = tpos if fmt != "seconds" else None
     cols = {p: _Column(raw[p], src.decimal) for p in set(positions.values()) if p != iso_pos}
     for q, p in positions.items():
         if p != iso_pos:
             _count_cells(meta, q, src.names[p], cols[p])
 
     if iso_pos is not None:
-        t_sec = _iso_seconds(src, config, raw[tpos], meta)
+        traw = raw[tpos]
+        if jpos is not None:
+            traw = (traw.astype(object).where(traw.notna(), "").astype(str).str.strip() + " "
+                    + raw[jpos].astype(object).where(raw[jpos].notna(), "").astype(str)
+                    .str.strip()).str.strip().replace("", None)
+        t_sec = _iso_seconds(src, config, traw, meta, fmt)
     else:
         t_sec = _elapsed_seconds(src, config, cols[tpos], convs["time"], meta)
     values = _channel_values(src, channels, positions, cols, convs, iso_pos, meta)
@@ -557,6 +641,13 @@ def _on_raster(out: dict[str, np.ndarray], raster: float, meta: RunMeta) -> dict
     }
 
 
+def _join_channel(ch: Channel) -> Channel:
+    """The time channel's second (time-of-day) column as a channel of its own, to locate it."""
+    import dataclasses
+
+    return dataclasses.replace(ch, column=ch.join_column, join_column=None)
+
+
 def _locate_columns(src: Source, channels: dict[str, Channel], meta: RunMeta) -> dict[str, int]:
     """Position in ``src`` of every channel mapped to a column (noted in ``meta``)."""
     positions: dict[str, int] = {}
@@ -586,8 +677,12 @@ def _locate_columns(src: Source, channels: dict[str, Channel], meta: RunMeta) ->
 
 
 def _mostly_iso(cells: list[str]) -> str:
+    """``iso8601`` when most cells are ISO time stamps, ``clock`` when they are dates and
+    times in another common layout, else ``seconds``."""
     iso = sum(1 for c in cells if ISO_RE.fullmatch(c))
-    return "iso8601" if cells and iso * 2 > len(cells) else "seconds"
+    if cells and iso * 2 > len(cells):
+        return "iso8601"
+    return "clock" if cells and detect_clock_format(cells) is not None else "seconds"
 
 
 def _time_format_from_cells(src: Source, tpos: int) -> str | None:
@@ -616,8 +711,8 @@ def _conversions(
     std = config.input.standard_state
     convs: dict[str, Conversion] = {}
     for q, ch in config.channels.items():
-        if q == "time" and fmt == "iso8601":
-            meta.units_in[q] = "ISO 8601"
+        if q == "time" and fmt != "seconds":
+            meta.units_in[q] = "ISO 8601" if fmt == "iso8601" else f"clock ({fmt})"
             continue
         unit = ch.unit
         file_unit = _file_unit(src, positions[q]) if q in positions else None
@@ -671,10 +766,18 @@ def _file_basis_agrees(path: Path, q: str, col: str, unit: str, basis: str | Non
         )
 
 
-def _iso_seconds(src: Source, config: Config, traw: pd.Series, meta: RunMeta) -> np.ndarray:
-    """Seconds since the first readable ISO 8601 time stamp (which is the run's start)."""
+def _iso_seconds(
+    src: Source, config: Config, traw: pd.Series, meta: RunMeta, fmt: str = "iso8601"
+) -> np.ndarray:
+    """Seconds since the first readable time stamp (which is the run's start): ISO 8601, or
+    date and time of day in a common layout (``clock``) or a strftime pattern."""
     tname = meta.columns_in["time"]
-    ts = _iso_times(traw, config.input.timezone, meta, tname)
+    if config.channels["time"].join_column:
+        tname = f"{tname}' + '{config.channels['time'].join_column}"
+    if fmt == "iso8601":
+        ts = _iso_times(traw, config.input.timezone, meta, tname)
+    else:
+        ts = _clock_times(traw, fmt, config.input.timezone, meta, tname)
     nat = ts.isna().to_numpy()
     na = traw.isna().to_numpy()
     bad = nat & ~na
@@ -685,8 +788,9 @@ def _iso_seconds(src: Source, config: Config, traw: pd.Series, meta: RunMeta) ->
     if bad.any():
         meta.bad_cells["time"] = int(bad.sum())
         meta.warnings.append(
-            f"Column '{tname}' (time): {int(bad.sum())} cell(s) are not ISO 8601 time "
-            f"stamps, e.g. '{traw[bad].iloc[0]}'."
+            f"Column '{tname}' (time): {int(bad.sum())} cell(s) are not "
+            f"{'ISO 8601 time stamps' if fmt == 'iso8601' else 'readable dates and times'}, "
+            f"e.g. '{traw[bad].iloc[0]}'."
         )
     if nat.all():
         examples = [str(v) for v in traw[~na].head(3)]
