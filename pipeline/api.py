@@ -19,7 +19,13 @@ import pandas as pd
 
 from . import __version__
 from .align import Alignment, align
-from .balance import BalanceResult, DriftCorrected, compute_balance, drift_corrected
+from .balance import (
+    IMPOSSIBLE_O2_PLUS_CO2,
+    BalanceResult,
+    DriftCorrected,
+    compute_balance,
+    drift_corrected,
+)
 from .balance.tables import emissions_table
 from .checks import CheckSettings, ChecksResult, run_checks
 from .checks.verdicts import console_lines
@@ -27,7 +33,7 @@ from .config import Config, load_config
 from .ingest import read_joined, read_run
 from .quantities import DERIVED, GASES, INPUTS
 from .records import ProcessResult, RunData, RunMeta, columns_frame
-from .states import ENGINE_STATE_ATTRS, engine_state, running
+from .states import BENCH_STATE_ATTRS, ENGINE_STATE_ATTRS, bench_state, engine_state, running
 
 
 def run_stem(path: Path) -> str:
@@ -198,8 +204,10 @@ def _assemble(
 ) -> ProcessResult:
     """The stages' outputs as one result: series side by side with their attributes, the
     tables, provenance and the console lines of the verdicts."""
+    bench = bench_state(frame, bal.sampling_state, cfg.drift_correction.zero_mode,
+                        cfg.drift_correction.span_mode, IMPOSSIBLE_O2_PLUS_CO2)
     series = _join_columns(
-        frame, bal.derived, {"engine_state": state}, checked.series,
+        frame, bal.derived, {"engine_state": state, "bench_state": bench}, checked.series,
         corrected.series if corrected else {},
     )
     tables = dict(checked.tables)
@@ -211,6 +219,7 @@ def _assemble(
     series_attrs = _series_attrs(cfg, run)
     series_attrs.update(checked.series_attrs)
     series_attrs["engine_state"] = dict(ENGINE_STATE_ATTRS)
+    series_attrs["bench_state"] = dict(BENCH_STATE_ATTRS)
     for name in series.columns:
         base = name.removesuffix("_driftcor")
         if base != name and base in series_attrs:

@@ -39,7 +39,13 @@ _FUEL_KEYS = {
 }
 _INPUT_KEYS = {"delimiter", "decimal", "encoding", "units_row", "timezone", "raster_s",
                "standard_temperature_degC", "standard_pressure_kPa"}
-_CHANNEL_KEYS = {"column", "value", "unit", "basis", "carbon_number", "format", "range"}
+_CHANNEL_KEYS = {"column", "value", "unit", "basis", "carbon_number", "format", "range",
+                 "states"}
+
+#: Bench states an ``analyzer_mode`` text channel may name (``[channels.analyzer_mode]
+#: states``), with their codes: 0 sample; zero and span take ``[drift_correction]
+#: zero_mode``/``span_mode`` (default 1, 2); 3 purge (incl. probe back-purges); 4 leak check.
+BENCH_STATE_NAMES = ("sample", "zero", "span", "purge", "leak_check")
 _SAMPLING_KEYS = {
     "dryer_dewpoint_degC",
     "dryer_pressure_kPa",
@@ -89,6 +95,8 @@ class Channel:
     format: str | None = None  # time: "seconds" (default) or "iso8601"
     range: float | None = None  # analyzer full-scale range, in `unit`
     join_column: str | None = None  # time: a second column (the time of day) joined to column
+    #: analyzer_mode: words of a text status column per bench state (BENCH_STATE_NAMES)
+    states: dict[str, tuple[str, ...]] | None = None
     #: False when the config left the unit implicit (canonical, or the file's own unit).
     unit_given: bool = field(default=True, compare=False)
 
@@ -234,6 +242,8 @@ class Config:
                 d.pop("carbon_number", None)
             if d.pop("join_column", None):
                 d["column"] = [ch.column, ch.join_column]
+            if d.get("states"):
+                d["states"] = {k: list(v) for k, v in d["states"].items()}
             return d
 
         return {
@@ -446,7 +456,32 @@ def _parse_channel(name: str, table: Any, path: Path) -> Channel:
     if not isinstance(unit, str):
         raise ConfigError(f"{path}: {where} unit must be text, e.g. unit = \"{q.unit}\".")
     return Channel(name, unit, column, value, basis, carbon_number, fmt, rng,
-                   join_column=join_column, unit_given="unit" in table)
+                   join_column=join_column, unit_given="unit" in table,
+                   states=_parse_states(name, table.get("states"), where, path))
+
+
+def _parse_states(
+    name: str, states: Any, where: str, path: Path
+) -> dict[str, tuple[str, ...]] | None:
+    """``states = {sample = ["MESS"], zero = ["NULL"], ...}`` of a text analyzer_mode."""
+    if states is None:
+        return None
+    if name != "analyzer_mode":
+        raise ConfigError(f"{path}: {where} states applies to analyzer_mode only.")
+    if not isinstance(states, dict):
+        raise ConfigError(f"{path}: {where} states must be a table, e.g. states = "
+                          "{sample = [\"MESS\"], zero = [\"NULL\"], span = [\"SPAN\"]}.")
+    out: dict[str, tuple[str, ...]] = {}
+    for key, words in states.items():
+        if key not in BENCH_STATE_NAMES:
+            raise ConfigError(f"{path}: {where} states has '{key}';{_hint(key, BENCH_STATE_NAMES)}"
+                              f" known states: {', '.join(BENCH_STATE_NAMES)}.")
+        words = [words] if isinstance(words, str) else words
+        if not isinstance(words, list) or not all(isinstance(w, str) for w in words):
+            raise ConfigError(f"{path}: {where} states.{key} must be a word or a list of "
+                              f"words as the log writes them; got {words!r}.")
+        out[key] = tuple(words)
+    return out
 
 
 def _parse_methods(table: Any, path: Path) -> tuple[str, ...]:

@@ -84,6 +84,7 @@ _DERIVED = [
     Quantity("sampling", "1", "1 where the analyzers sample exhaust, 0 where not", "derived"),
     Quantity("valid", "1", "1 where all three lambda estimates are defined", "derived"),
     Quantity("engine_state", "1", "engine operating state (0 off, 1 starting, 2 idle, 3 running)", "derived"),
+    Quantity("bench_state", "1", "what the analyzers see (0 sample, 1 zero, 2 span, 3 purge, 4 leak_check, 5 not_exhaust, 6 response)", "derived"),
 ]
 # fmt: on
 

@@ -83,3 +83,65 @@ def engine_state(frame: pd.DataFrame, settings: Mapping[str, Any]) -> np.ndarray
 def running(state: np.ndarray) -> np.ndarray:
     """Samples where the engine fires and has settled (idle or running)."""
     return np.asarray(state) >= ENGINE_IDLE
+
+
+BENCH_SAMPLE, BENCH_ZERO, BENCH_SPAN, BENCH_PURGE, BENCH_LEAK, BENCH_OTHER, BENCH_RESPONSE = (
+    0, 1, 2, 3, 4, 5, 6
+)
+
+#: CF ``flag_values`` / ``flag_meanings`` of the ``bench_state`` series.
+BENCH_STATE_ATTRS: dict[str, Any] = {
+    "units": DERIVED["bench_state"].unit,
+    "long_name": DERIVED["bench_state"].long_name,
+    "flag_values": np.arange(7, dtype=np.int8),
+    "flag_meanings": "sample zero span purge leak_check not_exhaust response",
+}
+
+#: Above this O2 (mol/mol) gas without exhaust carbon is air (a purge), below it zero gas
+#: (common practice: zero gas is N2 or synthetic air; we call synthetic air a purge too).
+PURGE_MIN_O2 = 0.15
+
+
+def bench_state(
+    frame: pd.DataFrame,
+    sampling_state: np.ndarray,
+    zero_mode: float,
+    span_mode: float,
+    impossible_o2_plus_co2: float,
+) -> np.ndarray:
+    """``BENCH_*`` code per sample: what the analyzers see. From the logged ``analyzer_mode``
+    where it says the bench is not sampling (its zero and span codes, 3 purge, 4 leak check),
+    else from the gases the balance found not to be exhaust: no carbon with air's O2 is a
+    purge, no carbon without O2 a zero gas, CO2 + O2 above air's a span gas; the response
+    guard around a switch is ``response``."""
+    from .balance import STATE_ANALYZER_MODE, STATE_LOW_CARBON, STATE_SAMPLING
+
+    state = np.asarray(sampling_state)
+    n = state.size
+    out = np.full(n, BENCH_OTHER, dtype=np.int8)
+    out[state == STATE_SAMPLING] = BENCH_SAMPLE
+    o2 = _column(frame, "o2")
+    co2 = _column(frame, "co2")
+    low = state == STATE_LOW_CARBON
+    if o2 is not None:
+        with np.errstate(invalid="ignore"):
+            out[low & (o2 >= PURGE_MIN_O2)] = BENCH_PURGE
+            out[low & ~(o2 >= PURGE_MIN_O2)] = BENCH_ZERO
+    else:
+        out[low] = BENCH_ZERO
+    rest = (state != STATE_SAMPLING) & ~low & (state != STATE_ANALYZER_MODE)
+    if o2 is not None and co2 is not None:
+        with np.errstate(invalid="ignore"):
+            span = rest & (o2 + co2 > impossible_o2_plus_co2)
+        out[span] = BENCH_SPAN
+        out[rest & ~span] = BENCH_RESPONSE
+    mode = _column(frame, "analyzer_mode")
+    if mode is not None:
+        logged = (state == STATE_ANALYZER_MODE) | ((state != STATE_SAMPLING) &
+                                                   np.isfinite(mode) & (mode != 0))
+        for code, value in ((BENCH_ZERO, zero_mode), (BENCH_SPAN, span_mode),
+                            (BENCH_PURGE, 3.0), (BENCH_LEAK, 4.0)):
+            out[logged & (mode == value)] = code
+        out[(state == STATE_ANALYZER_MODE) & ~np.isin(mode, [zero_mode, span_mode, 3.0, 4.0])
+            ] = BENCH_OTHER
+    return out

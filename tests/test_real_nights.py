@@ -268,3 +268,27 @@ def test_us_start_line_gives_the_start_time(tmp_path: Path) -> None:
     res = process_run(path, cfg)
     # 9 PM EST (UTC-5 after 1 Nov 2026) is 02:00 UTC the next day
     assert res.attrs["start_time_utc"] == "2026-11-03T02:00:00Z"
+
+
+def test_text_bench_states_are_read_as_states(tmp_path: Path) -> None:
+    # A German bench writes its state as words (our invented export; the words are those a
+    # German bench display uses: MESS, NULL, SPAN, SPUELEN). They are states, not bad cells.
+    from pipeline.states import BENCH_SAMPLE, BENCH_SPAN, BENCH_ZERO
+    from pipeline.testing.simulate import CalWindow
+
+    sc = dataclasses.replace(cell_b3_scenario(), duration_h=1.0, faults=[], dropouts=[],
+                             cal_windows=[CalWindow(start_h=0.5)], line_heater_trips=[],
+                             seed=13)
+    log, _ = make_night(sc)
+    words = {0: "MESS", 1: "NULL", 2: "SPAN", 3: "SPUELEN"}
+    log["bench_mode"] = log["bench_mode"].map(lambda v: words.get(int(v), "MESS"))
+    path = tmp_path / "text_states.csv"
+    write_csv(log, path, units=log.attrs["units"], metadata=METADATA)
+    res = process_run(path, SAMPLE_CONFIG)
+    assert "analyzer_mode" not in res.attrs["bad_cells"]
+    bench = res.series["bench_state"].to_numpy()
+    mode = log["bench_mode"].to_numpy()
+    assert (bench[mode == "NULL"][30:] == BENCH_ZERO).mean() > 0.9
+    assert (bench[mode == "SPAN"][30:] == BENCH_SPAN).mean() > 0.9
+    assert (bench[mode == "MESS"] == BENCH_SAMPLE).mean() > 0.95
+    assert set(res.tables["verdicts"]["status"]) == {"ok"}

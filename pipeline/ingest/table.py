@@ -577,6 +577,9 @@ def build_run(src: Source, config: Config) -> RunData:
     fmt = fmt or _time_format_from_values(raw[tpos])
 
     convs = _conversions(src, config, positions, fmt, meta)
+    if "analyzer_mode" in positions:
+        mp = positions["analyzer_mode"]
+        raw[mp] = _mode_codes(raw[mp], config, meta)
     iso_pos = tpos if fmt != "seconds" else None
     cols = {p: _Column(raw[p], src.decimal) for p in set(positions.values()) if p != iso_pos}
     for q, p in positions.items():
@@ -639,6 +642,55 @@ def _on_raster(out: dict[str, np.ndarray], raster: float, meta: RunMeta) -> dict
     return {"time": grid} | {
         q: resample(t, v, grid, q in HELD_CHANNELS) for q, v in out.items() if q != "time"
     }
+
+
+#: Words of text bench-status columns understood without a ``states`` table (case and
+#: blanks ignored; common practice of English and German bench exports).
+DEFAULT_STATE_WORDS: dict[str, tuple[str, ...]] = {
+    "sample": ("sample", "sampling", "measure", "measuring", "meas", "mess", "messen",
+               "messung", "run", "exhaust"),
+    "zero": ("zero", "zero gas", "zerogas", "null", "nullgas", "nullen", "nullpunkt"),
+    "span": ("span", "span gas", "spangas", "cal", "kal", "kalib", "kalibrieren", "endpunkt"),
+    "purge": ("purge", "back purge", "backpurge", "backflush", "blowback", "spuelen",
+              "spülen", "ruckspulen", "rückspülen", "spul"),
+    "leak_check": ("leak", "leak check", "leakcheck", "dicht", "dichtheit"),
+}
+
+
+def _mode_codes(raw: pd.Series, config: Config, meta: RunMeta) -> pd.Series:
+    """A text ``analyzer_mode`` column as its numeric codes: 0 sample, the
+    ``[drift_correction]`` zero and span codes, 3 purge, 4 leak check (words from
+    ``[channels.analyzer_mode] states``, else :data:`DEFAULT_STATE_WORDS`). Numeric columns
+    pass unchanged; unknown words stay text (bad cells, counted)."""
+    if pd.api.types.is_numeric_dtype(raw.dtype) or pd.api.types.is_bool_dtype(raw.dtype):
+        return raw
+    dc = config.drift_correction
+    codes = {"sample": 0.0, "zero": float(dc.zero_mode), "span": float(dc.span_mode),
+             "purge": 3.0, "leak_check": 4.0}
+    words = config.channels["analyzer_mode"].states or DEFAULT_STATE_WORDS
+
+    def norm(x: object) -> str:
+        return re.sub(r"[\s_\-]+", " ", str(x).strip().lower())
+
+    table = {norm(w): codes[state] for state, ws in words.items() for w in ws}
+    text = raw.astype(object).where(raw.notna(), None)
+    keys = pd.Series(text, dtype=object).map(lambda x: None if x is None else norm(x))
+    mapped = keys.map(table)
+    known = mapped.notna() | keys.isna()
+    out = raw.astype(object).copy()
+    out[mapped.notna()] = mapped[mapped.notna()].map(repr)  # numbers as text, parsed next
+    if mapped.notna().any():
+        meta.warnings.append(
+            f"analyzer_mode is text: {int(mapped.notna().sum())} cell(s) read as bench states "
+            f"({', '.join(sorted({str(v) for v in raw[mapped.notna()].unique()[:6]}))})."
+        )
+    if not known.all():
+        unknown = sorted({str(v) for v in raw[~known].unique()[:5]})
+        meta.warnings.append(
+            f"analyzer_mode: unknown bench state word(s) {', '.join(unknown)}; name them in "
+            "[channels.analyzer_mode] states."
+        )
+    return out
 
 
 def _join_channel(ch: Channel) -> Channel:
