@@ -187,6 +187,7 @@ def process_run(
         frame, bal.derived, settings, has_sensor="lambda_sensor" in frame,
         start_time=run.meta.start_time, logged=run.frame, sampling_state=bal.sampling_state,
         engine_state=state, update_rows=run.meta.update_rows,
+        sensitivity={"o2": bal.attrs.get("o2_lambda_sensitivity", float("nan"))},
     )
     progress("results")
     return _assemble(cfg, run, frame, state, alignment, bal, corrected, checked)

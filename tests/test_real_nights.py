@@ -292,3 +292,22 @@ def test_text_bench_states_are_read_as_states(tmp_path: Path) -> None:
     assert (bench[mode == "SPAN"][30:] == BENCH_SPAN).mean() > 0.9
     assert (bench[mode == "MESS"] == BENCH_SAMPLE).mean() > 0.95
     assert set(res.tables["verdicts"]["status"]) == {"ok"}
+
+
+def test_an_o2_zero_shift_is_stated_in_vol_percent(tmp_path: Path) -> None:
+    # +0.30 %vol on the O2 analyzer from 2 h: the verdict names the O2 analyzer and states
+    # the offset in its own unit (the truth of the forward model), within 30 %.
+    from pipeline.testing.simulate import Fault
+
+    sc = dataclasses.replace(cell_b3_scenario(), duration_h=5.0, cal_windows=[],
+                             dropouts=[], line_heater_trips=[], seed=17,
+                             faults=[Fault("o2", "zero_shift", onset_h=2.0, size=0.003)])
+    log, _ = make_night(sc)
+    path = tmp_path / "o2.csv"
+    write_csv(log, path, units=log.attrs["units"], metadata=METADATA)
+    res = process_run(path, SAMPLE_CONFIG)
+    v = res.tables["verdicts"].set_index("instrument").loc["o2"]
+    assert v["status"] == "suspect"
+    assert v["reads_abs"] == pytest.approx(0.003, rel=0.3)
+    assert abs(v["onset_s"] / 3600.0 - 2.0) < 0.5
+    assert "%vol high" in v["line"] and "%vol high" in v["evidence"]

@@ -193,6 +193,7 @@ def compute_balance(
     x_co2_int_dry = s.intake_co2_ppm * 1e-6
     o2 = masked(gases["o2"])
     chem = None
+    o2_sensitivity = float("nan")
     if fuel.has_carbon:
         chem = chemical_balance(
             fuel,
@@ -224,6 +225,9 @@ def compute_balance(
             )
         )
         x_h2o_exh = np.where(np.isfinite(lam_carbon), x_h2o_exh, np.nan)
+        o2_sensitivity = _o2_sensitivity(
+            fuel, chem, o2_dry, o2, x_co2_int_dry, np.isfinite(lam_oxygen) & np.isfinite(lam_carbon)
+        )
     else:
         warnings.append(
             f"Fuel '{fuel.name}' has no carbon: the carbon balance is undefined, so "
@@ -265,6 +269,7 @@ def compute_balance(
         "nox_no2_fraction": s.nox_no2_fraction,
         "chemical_balance_iterations": chem.iterations if chem is not None else 0,
         "water_gas_constant": C.K_WATER_GAS,
+        "o2_lambda_sensitivity": o2_sensitivity,
     }
     return BalanceResult(
         derived=derived, warnings=warnings, attrs=attrs, chem=chem,
@@ -432,6 +437,39 @@ def _widen(t: np.ndarray, mask: np.ndarray, guard_s: float) -> np.ndarray:
     np.add.at(edges, lo, 1)
     np.add.at(edges, hi, -1)
     return np.cumsum(edges[:-1]) > 0
+
+
+def _o2_sensitivity(
+    fuel: Fuel,
+    chem: ChemicalBalance,
+    o2_dry: np.ndarray | None,
+    o2_read: np.ndarray | None,
+    x_co2_int_dry: float,
+    ok: np.ndarray,
+) -> float:
+    """d ln(lambda_oxygen) / d(O2 reading) at the night's median exhaust [1/(mol/mol)]: how
+    much an O2 analyzer error moves the oxygen-balance lambda (a central difference of the
+    Brettschneider equation, REFERENCES 2, at the median dry readings; the reading's own
+    basis through the median dry/as-read ratio). NaN without O2 or valid samples."""
+    if o2_dry is None or o2_read is None or not ok.any():
+        return float("nan")
+
+    def med(x: np.ndarray | None) -> np.ndarray:
+        return np.array([float(np.nanmedian(x[ok])) if x is not None else 0.0])
+
+    dry = {k: med(chem.dry[k]) for k in ("co2", "co", "thc", "no")}
+    h2 = med(chem.x_h2_dry) if chem.x_h2_dry is not None else None
+    o2 = med(o2_dry)
+    step = 1e-4
+    lam = [
+        float(lambda_brettschneider(fuel, dry["co2"], o2 + d, dry["co"], dry["thc"], dry["no"],
+                                    intake_co2_dry=x_co2_int_dry, h2_dry=h2)[0])
+        for d in (-step, step)
+    ]
+    ratio = float(np.nanmedian(o2_dry[ok] / o2_read[ok]))
+    if not all(np.isfinite(v) and v > 0 for v in lam) or not np.isfinite(ratio):
+        return float("nan")
+    return (np.log(lam[1]) - np.log(lam[0])) / (2 * step) * ratio
 
 
 def _positive(x: np.ndarray) -> np.ndarray:

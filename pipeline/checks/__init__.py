@@ -189,6 +189,7 @@ def run_checks(
     sampling_state: np.ndarray | None = None,
     engine_state: np.ndarray | None = None,
     update_rows: Mapping[str, int] | None = None,
+    sensitivity: Mapping[str, float] | None = None,
 ) -> ChecksResult:
     """Steady points, residuals, disagreement, drift, attribution, every flag of the night
     and the verdict per instrument.
@@ -211,6 +212,8 @@ def run_checks(
         interval.
     update_rows: rows between the updates of channels logged at a lower rate than the file
         (``RunMeta.update_rows``), for ``data_gap``.
+    sensitivity: d ln(lambda) / d(reading) per instrument (``o2``), so a verdict states the
+        fault in the instrument's own unit.
     """
     s = resolve_settings(settings)
     typed = settings if isinstance(settings, CheckSettings) else None
@@ -273,7 +276,7 @@ def run_checks(
     drift = drift_table(results)
     verdicts = judge(
         flags, instruments, drift=drift, start_time=start_time,
-        end_s=float(time[-1]) if n else float("nan"),
+        end_s=float(time[-1]) if n else float("nan"), sensitivity=sensitivity,
     )
     return ChecksResult(
         series=series,

@@ -15,7 +15,7 @@ Status of an instrument:
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import asdict, dataclass, field, fields
 from datetime import datetime
 
@@ -45,7 +45,9 @@ class Verdict:
     check: the lead flag's check; onset_s, end_s: time covered by the flags of the lead kind
     [s since start]; size_pct: the lead flag's value (a lambda shift in % for faults);
     reads_pct: what the shift means for the instrument's own reading in % (CO2 analyzer:
-    1/(1 + shift) - 1; NaN when not defined); line: short phrase for the console;
+    1/(1 + shift) - 1; NaN when not defined); reads_abs: the same as an offset of the reading
+    in mol/mol (O2 analyzer, from the balance's sensitivity of lambda_oxygen to O2); line:
+    short phrase for the console;
     evidence: the plain sentence for the summary; flag_rows: rows of ``/flags`` behind it.
     """
 
@@ -58,6 +60,7 @@ class Verdict:
     end_s: float = float("nan")
     size_pct: float = float("nan")
     reads_pct: float = float("nan")
+    reads_abs: float = float("nan")
     line: str = "ok"
     evidence: str = ""
     flag_rows: list[int] = field(default_factory=list)
@@ -70,6 +73,8 @@ class Verdict:
 #: Columns of the ``/verdicts`` table, in order.
 VERDICT_COLUMNS = tuple(f.name for f in fields(Verdict))
 
+_FLOAT_COLUMNS = ("onset_s", "end_s", "size_pct", "reads_pct", "reads_abs")
+
 #: ``long_name`` of each column of the ``/verdicts`` table.
 VERDICT_LONG_NAMES = {
     "instrument": "canonical instrument name",
@@ -81,6 +86,7 @@ VERDICT_LONG_NAMES = {
     "end_s": "end of the flagged finding, time since start of run",
     "size_pct": "value of the lead flag (lambda shift for drift and disagreement)",
     "reads_pct": "reading error of the instrument implied by the lambda shift",
+    "reads_abs": "offset of the instrument's reading implied by the lambda shift (O2)",
     "line": "verdict as one console line",
     "evidence": "verdict as a plain sentence with its evidence",
     "flag_rows": "rows of /flags behind the verdict, ;-separated",
@@ -109,11 +115,26 @@ def _reads_pct(suspect: str, value_pct: float) -> float:
     return float("nan")
 
 
-def _fault_words(instrument: str, suspect: str, value: float, reads: float) -> str:
+def _reads_abs(suspect: str, value_pct: float, sensitivity: Mapping[str, float] | None) -> float:
+    """The reading offset [mol/mol] behind a lambda shift of ``value_pct``: ln(1 + s) over
+    the sensitivity d ln(lambda) / d(reading) (O2 analyzer)."""
+    sens = (sensitivity or {}).get(suspect, np.nan)
+    if suspect != "o2" or not np.isfinite(value_pct) or not np.isfinite(sens) or sens == 0:
+        return float("nan")
+    return float(np.log1p(value_pct / 100.0) / sens)
+
+
+def _fault_words(
+    instrument: str, suspect: str, value: float, reads: float, reads_abs: float = np.nan
+) -> str:
     """What a drift/disagreement of ``value`` % in lambda says about the instrument."""
     if not np.isfinite(value):
         return ""
     up = value > 0
+    if suspect == "o2" and np.isfinite(reads_abs):
+        return (f": it reads about {100 * abs(reads_abs):.2f} %vol "
+                f"{'high' if reads_abs > 0 else 'low'}"
+                f" (lambda_oxygen moved {value:+.1f} % against the other estimates)")
     if suspect == "co2" and np.isfinite(reads):
         return (f": it reads about {abs(reads):.1f} % {'high' if reads > 0 else 'low'}"
                 f" (lambda_carbon moved {value:+.1f} % against the other estimates)")
@@ -164,6 +185,7 @@ def judge(
     drift: pd.DataFrame | None = None,
     start_time: datetime | None = None,
     end_s: float = float("nan"),
+    sensitivity: Mapping[str, float] | None = None,
 ) -> list[Verdict]:
     """One :class:`Verdict` per instrument from the final, sorted ``flags`` table.
 
@@ -171,8 +193,10 @@ def judge(
     logged, the gases logged); any other instrument a flag names is added. drift: the
     ``/drift`` table (for the drift shape in the evidence); start_time: the run's start
     (UTC) for clock times; end_s: the last time of the run (a fault reaching it runs "to the
-    end of the run"). Order: by status (:data:`~pipeline.instruments.STATUS_ORDER`), then
-    in the order of ``instruments``.
+    end of the run"); sensitivity: d ln(lambda of its estimate) / d(reading) per instrument
+    (the balance's ``o2_lambda_sensitivity`` for ``o2``), to state a fault in the
+    instrument's own unit. Order: by status (:data:`~pipeline.instruments.STATUS_ORDER`),
+    then in the order of ``instruments``.
     """
     clock: Callable[[float], str] = make_clock(start_time) if start_time else format_elapsed
     n = len(flags)
@@ -207,9 +231,15 @@ def judge(
             shared = len(parts[i]) > 1
             a, b = float(start[fault].min()), float(end[fault].max())
             reads = _reads_pct(suspects[i], value[i])
+            reads_abs = _reads_abs(suspects[i], value[i], sensitivity)
             word = "drift" if checks[i] == "drift" else "disagreement"
-            size = (f"reads {abs(reads):.1f} % {'high' if reads > 0 else 'low'}"
-                    if np.isfinite(reads) else f"{value[i]:+.1f} % in lambda")
+            if np.isfinite(reads):
+                size = f"reads {abs(reads):.1f} % {'high' if reads > 0 else 'low'}"
+            elif np.isfinite(reads_abs):
+                size = (f"reads {100 * abs(reads_abs):.2f} %vol "
+                        f"{'high' if reads_abs > 0 else 'low'} ({value[i]:+.1f} % in lambda)")
+            else:
+                size = f"{value[i]:+.1f} % in lambda"
             extra = len(fault) + len(other) - 1
             line = (f"{word} {size} from {clock(start[i])}, flagged for "
                     f"{(end[i] - start[i]) / 3600.0:.1f} h, {'shared ' if shared else ''}suspect"
@@ -218,7 +248,7 @@ def judge(
                      else f"until {clock(b)}")
             what = "drifted" if checks[i] == "drift" else "disagreed with the other instruments"
             evidence = (f"The {lab} {what} from {_describe_time(start_time, a)} {until}"
-                        + _fault_words(name, suspects[i], value[i], reads))
+                        + _fault_words(name, suspects[i], value[i], reads, reads_abs))
             if checks[i] == "drift":
                 evidence += _drift_shape(drift, float(start[i]))
             evidence += "."
@@ -229,7 +259,7 @@ def judge(
                 evidence += f" {len(fault) - 1} further fault flag(s) name it."
             out.append(Verdict(
                 name, lab, "shared suspect" if shared else "suspect", suspects[i], checks[i],
-                a, b, float(value[i]), reads, line, evidence, fault + other,
+                a, b, float(value[i]), reads, reads_abs, line, evidence, fault + other,
             ))
         elif other:
             i = other[0]
@@ -249,7 +279,8 @@ def judge(
                         f"{_describe_time(start_time, float(start[i]))} ({msg.rstrip('.')}).")
             out.append(Verdict(
                 name, lab, "attention", suspects[i], checks[i], float(start[rows].min()),
-                float(end[rows].max()), float(value[i]), float("nan"), line, evidence, other,
+                float(end[rows].max()), float(value[i]), float("nan"), float("nan"), line,
+                evidence, other,
             ))
         else:
             evidence = f"The {lab} agrees with the other instruments: no fault found."
@@ -283,13 +314,13 @@ def verdicts_table(verdicts: Sequence[Verdict]) -> pd.DataFrame:
         d["flag_rows"] = ";".join(str(i) for i in v.flag_rows)
         rows.append(d)
     df = pd.DataFrame(rows, columns=list(VERDICT_COLUMNS))
-    for col in ("onset_s", "end_s", "size_pct", "reads_pct"):
+    for col in _FLOAT_COLUMNS:
         df[col] = df[col].astype("float64")
     for col in VERDICT_COLUMNS:
-        if col not in ("onset_s", "end_s", "size_pct", "reads_pct"):
+        if col not in _FLOAT_COLUMNS:
             df[col] = df[col].astype(str).astype(object)
     df.attrs["units"] = {"onset_s": "s", "end_s": "s", "size_pct": "percent",
-                         "reads_pct": "percent"}
+                         "reads_pct": "percent", "reads_abs": "mol/mol"}
     df.attrs["long_names"] = dict(VERDICT_LONG_NAMES)
     return df
 
@@ -300,7 +331,7 @@ def verdicts_from_table(table: pd.DataFrame) -> list[Verdict]:
     for row in table.to_dict("records"):
         rows = [int(x) for x in str(row.get("flag_rows", "")).split(";") if x.strip()]
         kw = {k: row[k] for k in VERDICT_COLUMNS if k in row and k != "flag_rows"}
-        for k in ("onset_s", "end_s", "size_pct", "reads_pct"):
+        for k in _FLOAT_COLUMNS:
             if k in kw:
                 kw[k] = float(kw[k])
         out.append(Verdict(**{**kw, "flag_rows": rows}))
