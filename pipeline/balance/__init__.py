@@ -466,7 +466,10 @@ def _o2_sensitivity(
                                     intake_co2_dry=x_co2_int_dry, h2_dry=h2)[0])
         for d in (-step, step)
     ]
-    ratio = float(np.nanmedian(o2_dry[ok] / o2_read[ok]))
+    with np.errstate(invalid="ignore", divide="ignore"):  # O2 may read 0 at lambda 1
+        r = o2_dry[ok] / o2_read[ok]
+    r = r[np.isfinite(r)]
+    ratio = float(np.median(r)) if r.size else float("nan")
     if not all(np.isfinite(v) and v > 0 for v in lam) or not np.isfinite(ratio):
         return float("nan")
     return (np.log(lam[1]) - np.log(lam[0])) / (2 * step) * ratio
