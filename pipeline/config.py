@@ -8,6 +8,7 @@ with a "did you mean" hint.
 from __future__ import annotations
 
 import difflib
+import math
 import re
 import tomllib
 from dataclasses import asdict, dataclass, field, replace
@@ -304,10 +305,67 @@ def dumps_toml(data: dict[str, Any], prefix: str = "") -> str:
     return "\n".join(lines)
 
 
+#: Physical range of every numeric config value, by its place (lower, upper; inclusive).
+#: A value outside makes the result meaningless and is refused at load (common practice
+#: bounds of a test cell, deliberately wide).
+_RANGES: dict[str, tuple[float, float]] = {
+    "[fuel].h_c": (0.0, 4.0), "[fuel].o_c": (0.0, 2.0), "[fuel].s_c": (0.0, 0.1),
+    "[fuel].n_c": (0.0, 2.0), "[fuel].c": (0.0, 1.0),
+    "[fuel].lhv_MJ_per_kg": (1.0, 150.0), "[fuel].density_kg_per_m3": (0.05, 2000.0),
+    "[sampling].dryer_dewpoint_degC": (-60.0, 60.0),
+    "[sampling].dryer_pressure_kPa": (20.0, 400.0),
+    "[sampling].analyzer_delay_s": (0.0, 300.0),
+    "[sampling].intake_co2_ppm": (0.0, 10000.0),
+    "[sampling].not_sampling_carbon_fraction": (0.0, 0.05),
+    "[sampling].nox_no2_fraction": (0.0, 1.0),
+    "[sampling].condensation_margin_K": (0.0, 100.0),
+    "[sampling].not_sampling_guard_s": (0.0, 3600.0),
+    "[input] raster_s": (1e-4, 3600.0),
+    "[drift_correction] settle_s": (0.0, 3600.0),
+}
+
+
+def _line_of(path: Path, where: str) -> int | None:
+    """The line of the key ``where`` (``[table].key``, ``[table] key``) in the config file."""
+    m = re.match(r"\[([^\]]+)\]\.?\s*([\w]+)", where)
+    if m is None:
+        return None
+    table, key = m.group(1).strip(), m.group(2)
+    try:
+        lines = path.read_text(encoding="utf-8").splitlines()
+    except (OSError, UnicodeDecodeError):
+        return None
+    current = ""
+    for i, line in enumerate(lines, start=1):
+        head = re.match(r"\s*\[([^\[\]]+)\]\s*(#.*)?$", line)
+        if head:
+            current = head.group(1).strip()
+        elif current == table and re.match(rf"\s*{re.escape(key)}\s*=", line):
+            return i
+    return None
+
+
 def _number(value: Any, where: str, path: Path) -> float:
+    """A config number: int or float, finite, inside its physical range (:data:`_RANGES`);
+    ConfigError naming the file, line and key otherwise."""
+    def at() -> str:
+        line = _line_of(path, where)
+        return f"{path}, line {line}" if line else f"{path}"
+
     if isinstance(value, bool) or not isinstance(value, int | float):
-        raise ConfigError(f"{path}: {where} must be a number, got {value!r}.")
-    return float(value)
+        raise ConfigError(f"{at()}: {where} must be a number, got {value!r}.")
+    x = float(value)
+    if not math.isfinite(x):
+        raise ConfigError(f"{at()}: {where} must be a finite number, got {value!r}.")
+    lo, hi = _RANGES.get(where, (-math.inf, math.inf))
+    if not lo <= x <= hi:
+        raise ConfigError(f"{at()}: {where} = {value!r} is outside its physical range "
+                          f"[{lo:g}, {hi:g}].")
+    return x
+
+
+def _optional_number(table: dict[str, Any], key: str, where: str, path: Path) -> float | None:
+    return _number(table[key], f"{where}.{key}", path) if key in table else None
 
 
 def _parse_fuel(table: dict[str, Any], path: Path) -> Fuel:
@@ -371,8 +429,8 @@ def _parse_fuel(table: dict[str, Any], path: Path) -> Fuel:
     return Fuel(
         name="custom",
         **ratios,
-        lhv_MJ_per_kg=table.get("lhv_MJ_per_kg"),
-        density_kg_per_m3=table.get("density_kg_per_m3"),
+        lhv_MJ_per_kg=_optional_number(table, "lhv_MJ_per_kg", "[fuel]", path),
+        density_kg_per_m3=_optional_number(table, "density_kg_per_m3", "[fuel]", path),
         source="explicit atomic ratios in the config",
     )
 
@@ -450,6 +508,9 @@ def _parse_channel(name: str, table: Any, path: Path) -> Channel:
     if name == "time" and value is not None:
         raise ConfigError(f"{path}: [channels.time] must name a column, not a value.")
     rng = _number(table["range"], f"{where} range", path) if "range" in table else None
+    if rng is not None and not rng > 0:
+        raise ConfigError(f"{path}: {where} range must be positive (the analyzer's full "
+                          f"scale), got {rng!r}.")
     column, join_column = _parse_column(name, table, where, path)
     if join_column is not None:
         fmt = fmt or "clock"
@@ -528,6 +589,9 @@ def _parse_drift_correction(
                     f"channel unit ({channels[key].unit})>."
                 )
             nums = {k: _number(v, f"{where} {k}", path) for k, v in value.items()}
+            if not nums["span_gas"] > nums.get("zero_gas", 0.0):
+                raise ConfigError(f"{path}: {where} span_gas must be above zero_gas, got "
+                                  f"{nums['span_gas']!r}.")
             gases[key] = DriftReference(gas=key, **nums)
         else:
             if key not in _DRIFTCOR_KEYS:
@@ -654,6 +718,17 @@ def parse_config(raw: dict[str, Any], path: Path) -> Config:
         raise ConfigError(
             f"{path}: required channel(s) not mapped: {', '.join(missing)}. "
             "Add a [channels.<quantity>] table with column and unit for each."
+        )
+    by_column: dict[str, list[str]] = {}
+    for name, ch in channels.items():
+        if ch.column is not None:
+            by_column.setdefault(ch.column.strip(), []).append(name)
+    twice = {c: names for c, names in by_column.items() if len(names) > 1}
+    if twice:
+        c, names = next(iter(twice.items()))
+        raise ConfigError(
+            f"{path}: column '{c}' is mapped to {' and '.join(f'[channels.{n}]' for n in names)};"
+            " one column measures one quantity: check which channel it is."
         )
     if "ambient_humidity" in channels and "intake_humidity" in channels:
         raise ConfigError(f"{path}: give either ambient_humidity or intake_humidity, not both.")

@@ -90,7 +90,9 @@ AVAILABILITY_CHECKS: tuple[str, ...] = (
 )
 
 #: Verdict statuses, in the order a reader lists them.
-STATUS_ORDER: tuple[str, ...] = ("suspect", "shared suspect", "attention", "ok")
+STATUS_ORDER: tuple[str, ...] = (
+    "suspect", "shared suspect", "attention", "not enough data", "ok",
+)
 
 
 def label(instrument: str) -> str:

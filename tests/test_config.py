@@ -88,3 +88,46 @@ def test_standard_state_of_volume_flows_is_checked():
     assert cfg.input.standard_state == (20.0, 101.325)
     with pytest.raises(ConfigError, match="standard_pressure_kPa must be between"):
         parse_config(_minimal(input={"standard_pressure_kPa": 14.7}), Path("c.toml"))
+
+
+@pytest.mark.parametrize(
+    ("line", "match"),
+    [
+        ("[sampling]\nanalyzer_delay_s = nan", "analyzer_delay_s must be a finite number"),
+        ("[sampling]\ndryer_dewpoint_degC = inf", "dryer_dewpoint_degC must be a finite"),
+        ("[sampling]\nanalyzer_delay_s = -3.0", "outside its physical range"),
+        ("[sampling]\nnox_no2_fraction = 5", "outside its physical range"),
+        ("[checks]\ndisagreement_tolerance = 5", "is a fraction"),
+        ("[checks]\nsteady_window_s = nan", "must be a finite number"),
+    ],
+)
+def test_meaningless_numbers_are_refused_with_key_and_line(tmp_path, line, match):
+    # A value that makes the result meaningless is refused at load (exit 2), never run.
+    header, key_line = line.split("\n")
+    text = (ROOT / "configs" / "cell_b3.toml").read_text()
+    key = key_line.split("=")[0].strip()
+    lines = [ln for ln in text.splitlines() if not ln.startswith(f"{key} =")]
+    text = "\n".join(lines) + "\n"
+    if f"\n{header}\n" in text:  # a key of an existing table: right below its header
+        text = text.replace(f"\n{header}\n", f"\n{header}\n{key_line}\n", 1)
+    else:
+        text += f"\n{header}\n{key_line}\n"
+    path = tmp_path / "c.toml"
+    path.write_text(text)
+    with pytest.raises(ConfigError, match=match) as exc:
+        load_config(path)
+    if header == "[sampling]":  # the line of the key is named
+        n = text.splitlines().index(key_line) + 1
+        assert f"line {n}" in str(exc.value)
+
+
+def test_text_for_a_number_and_one_column_for_two_channels():
+    raw = _minimal()
+    raw["fuel"] = {"h_c": 1.8, "lhv_MJ_per_kg": "abc"}
+    with pytest.raises(ConfigError, match="lhv_MJ_per_kg must be a number"):
+        parse_config(raw, Path("c.toml"))
+    raw = _minimal()
+    raw["channels"]["o2"]["column"] = "c"  # the CO2 column
+    with pytest.raises(ConfigError, match=r"column 'c' is mapped to \[channels.co2\] and "
+                                          r"\[channels.o2\]"):
+        parse_config(raw, Path("c.toml"))

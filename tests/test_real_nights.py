@@ -311,3 +311,42 @@ def test_an_o2_zero_shift_is_stated_in_vol_percent(tmp_path: Path) -> None:
     assert v["reads_abs"] == pytest.approx(0.003, rel=0.3)
     assert abs(v["onset_s"] / 3600.0 - 2.0) < 0.5
     assert "%vol high" in v["line"] and "%vol high" in v["evidence"]
+
+
+def test_thousands_separators_in_a_decimal_comma_file(tmp_path: Path) -> None:
+    # A German export writing 1.002 for 1002 rpm (common practice of spreadsheet exports):
+    # read as 1002, with a note; mixed with a decimal point elsewhere: refused, never 1000x
+    # off in silence.
+    from pipeline.errors import InputDataError
+
+    sc = dataclasses.replace(cell_b3_scenario(), duration_h=0.5, faults=[], cal_windows=[],
+                             dropouts=[], line_heater_trips=[], seed=31)
+    log, _ = make_night(sc)
+    de = log.copy()
+    de["engine_speed"] = [f"{v:,.0f}".replace(",", ".") for v in log["engine_speed"]]
+    path = tmp_path / "de.csv"
+    write_csv(de, path, units=log.attrs["units"], delimiter=";", decimal=",", metadata=METADATA)
+    text = SAMPLE_CONFIG.read_text().replace('delimiter = ","', 'delimiter = ";"').replace(
+        'decimal = "."', 'decimal = ","')
+    cfg = tmp_path / "de.toml"
+    cfg.write_text(text)
+    res = process_run(path, cfg)
+    np.testing.assert_allclose(res.series["speed"], log["engine_speed"].round(0), atol=0.5)
+    assert any("group thousands" in w for w in res.attrs["warnings"])
+    de.loc[5, "engine_speed"] = "1.5"
+    write_csv(de, path, units=log.attrs["units"], delimiter=";", decimal=",", metadata=METADATA)
+    with pytest.raises(InputDataError, match="column 'engine_speed'.*cannot be read"):
+        process_run(path, cfg)
+
+
+def test_too_little_running_is_not_enough_data(tmp_path: Path) -> None:
+    # Five minutes of a night: no instrument reads "ok" on so little.
+    sc = dataclasses.replace(cell_b3_scenario(), duration_h=5 / 60, faults=[], cal_windows=[],
+                             dropouts=[], line_heater_trips=[], seed=2)
+    log, _ = make_night(sc)
+    path = tmp_path / "short.csv"
+    write_csv(log, path, units=log.attrs["units"], metadata=METADATA)
+    res = process_run(path, SAMPLE_CONFIG)
+    v = res.tables["verdicts"]
+    assert set(v["status"]) == {"not enough data"}
+    assert all("not enough data to judge" in line for line in v["line"])

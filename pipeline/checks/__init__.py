@@ -37,7 +37,7 @@ from .quality import out_of_range_flags, time_irregular_flags
 from .residuals import ESTIMATE_COLUMNS, carbon_fuel_flow, compute_residuals, relative_residual
 from .settings import CheckSettings, resolve_settings, thresholds_used
 from .steady import steady_mask, steady_points_table
-from .timebase import format_elapsed, make_clock
+from .timebase import format_elapsed, make_clock, median_step
 from .verdicts import Verdict, judge, verdicts_table
 
 __all__ = ["CheckSettings", "ChecksResult", "run_checks"]
@@ -277,6 +277,7 @@ def run_checks(
     verdicts = judge(
         flags, instruments, drift=drift, start_time=start_time,
         end_s=float(time[-1]) if n else float("nan"), sensitivity=sensitivity,
+        judged_s=_judged_seconds(time, judged_steady), min_judged_s=s["verdict_min_judged_s"],
     )
     return ChecksResult(
         series=series,
@@ -287,6 +288,16 @@ def run_checks(
         attrs=attrs,
         verdicts=verdicts,
     )
+
+
+def _judged_seconds(time: np.ndarray, mask: np.ndarray) -> float:
+    """Seconds covered by the ``mask`` samples (each worth its step to the next, capped at
+    the median step so a gap counts nothing)."""
+    if time.size < 2:
+        return 0.0
+    dt = np.diff(time, append=time[-1])
+    step = median_step(time)
+    return float(np.sum(np.minimum(dt, step)[mask]))
 
 
 def _sampling(derived: pd.DataFrame, n: int) -> np.ndarray:

@@ -11,6 +11,7 @@ which the result file records so a result can be reproduced.
 from __future__ import annotations
 
 import difflib
+import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
@@ -164,6 +165,12 @@ TIME_STEP_FACTOR = 1.5
 #: the pipeline, not here) [1] (common practice).
 TIME_GAP_FACTOR = 10.0
 
+# --- verdicts -------------------------------------------------------------------------------
+#: Fewest seconds of steady, valid running (analyzers sampling exhaust) a night must hold
+#: before an instrument is judged "ok"; below it the verdict is "not enough data" [s]
+#: (common practice: ten minutes give a few steady points and two drift blocks' worth).
+VERDICT_MIN_JUDGED_S = 600.0
+
 #: Availability flags (analyzers not sampling, engine off) closer than this are one interval
 #: [s] (common practice: a purge pulse train or a stall-restart is one event).
 AVAILABILITY_MERGE_GAP_S = 60.0
@@ -215,6 +222,7 @@ DEFAULTS: dict[str, float] = {
     "out_of_range_high_fraction": OUT_OF_RANGE_HIGH_FRACTION,
     "out_of_range_smooth_s": OUT_OF_RANGE_SMOOTH_S,
     "out_of_range_merge_gap_s": OUT_OF_RANGE_MERGE_GAP_S,
+    "verdict_min_judged_s": VERDICT_MIN_JUDGED_S,
     "availability_merge_gap_s": AVAILABILITY_MERGE_GAP_S,
     "availability_min_duration_s": AVAILABILITY_MIN_DURATION_S,
     "time_step_factor": TIME_STEP_FACTOR,
@@ -252,8 +260,13 @@ def resolve_settings(settings: Mapping[str, Any] | CheckSettings | None) -> dict
             )
         if isinstance(value, bool) or not isinstance(value, int | float):
             raise ConfigError(f"[checks].{key} must be a number, got {value!r}.")
+        if not math.isfinite(value):
+            raise ConfigError(f"[checks].{key} must be a finite number, got {value!r}.")
         if value < 0:
             raise ConfigError(f"[checks].{key} must not be negative, got {value!r}.")
+        if key.endswith(("_fraction", "_rel", "tolerance", "tolerance_sensor")) and value > 1:
+            raise ConfigError(f"[checks].{key} is a fraction (0..1), got {value!r}; write "
+                              "0.05 for 5 %.")
         resolved[key] = float(value)
     ranges = settings.get("ranges") or {}
     if not isinstance(ranges, dict):

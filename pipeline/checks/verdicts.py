@@ -10,6 +10,8 @@ Status of an instrument:
 - ``suspect``: a drift or lambda-disagreement flag names it alone;
 - ``shared suspect``: such a flag names it together with others the data cannot tell apart;
 - ``attention``: another check names it (out of range, condensation risk);
+- ``not enough data``: no flag names it, but the night holds too little steady, valid
+  running to judge (``verdict_min_judged_s``);
 - ``ok``: no flag names it (data gaps and not-sampling windows are listed, not judged).
 """
 
@@ -186,6 +188,8 @@ def judge(
     start_time: datetime | None = None,
     end_s: float = float("nan"),
     sensitivity: Mapping[str, float] | None = None,
+    judged_s: float = float("inf"),
+    min_judged_s: float = 0.0,
 ) -> list[Verdict]:
     """One :class:`Verdict` per instrument from the final, sorted ``flags`` table.
 
@@ -196,7 +200,8 @@ def judge(
     end of the run"); sensitivity: d ln(lambda of its estimate) / d(reading) per instrument
     (the balance's ``o2_lambda_sensitivity`` for ``o2``), to state a fault in the
     instrument's own unit. Order: by status (:data:`~pipeline.instruments.STATUS_ORDER`),
-    then in the order of ``instruments``.
+    then in the order of ``instruments``. judged_s: seconds of steady, valid running the
+    checks had; below ``min_judged_s`` an instrument without findings is "not enough data".
     """
     clock: Callable[[float], str] = make_clock(start_time) if start_time else format_elapsed
     n = len(flags)
@@ -282,6 +287,14 @@ def judge(
                 float(end[rows].max()), float(value[i]), float("nan"), float("nan"), line,
                 evidence, other,
             ))
+        elif judged_s < min_judged_s:
+            have = f"{judged_s / 60.0:.0f} min" if judged_s >= 60 else f"{judged_s:.0f} s"
+            line = (f"not enough data to judge ({have} of steady valid running, needs "
+                    f"{min_judged_s / 60.0:.0f} min)")
+            evidence = (f"The {lab} cannot be judged: the night holds only {have} of steady, "
+                        "valid running with the analyzers on exhaust.")
+            out.append(Verdict(name, lab, "not enough data", line=line, evidence=evidence,
+                               flag_rows=gaps))
         else:
             evidence = f"The {lab} agrees with the other instruments: no fault found."
             if gaps:
@@ -302,6 +315,8 @@ def headline(verdicts: Sequence[Verdict]) -> str:
         return "Suspect: " + ", ".join(v.name for v in suspects) + "."
     if any(v.status == "attention" for v in verdicts):
         return "No instrument suspect; some need attention."
+    if verdicts and all(v.status == "not enough data" for v in verdicts):
+        return "Not enough steady, valid running to judge the instruments."
     return "All instruments agree: no instrument is suspect."
 
 

@@ -184,8 +184,36 @@ def _file_unit(src: Source, idx: int) -> str | None:
     return unit
 
 
+#: A number with "." grouping the thousands in a decimal-comma file: 1.002 or 12.345,6.
+_GROUPED = re.compile(r"[+-]?[1-9]\d{0,2}(?:\.\d{3})+(?:,\d*)?")
+
+
 class _Column:
     """One raw file column as float64, with its counts of missing and bad cells."""
+
+    grouped = 0  # cells read with "." as thousands separator (decimal-comma files)
+
+    def _ungroup(self, s: pd.Series) -> pd.Series:
+        """Thousands separators in a decimal-comma column: where every cell with a "." is of
+        the grouped form (1.002, 12.345,6) the dots are removed; a column mixing grouped cells
+        with other dotted cells (1.5) cannot be read safely and is refused."""
+        dotted = s.str.contains(".", regex=False).fillna(False).to_numpy(dtype=bool)
+        if not dotted.any():
+            return s
+        grouped = s.str.fullmatch(_GROUPED).fillna(False).to_numpy(dtype=bool)
+        if (grouped | ~dotted).all():
+            self.grouped = int(grouped.sum())
+            return s.str.replace(".", "", regex=False)
+        other = dotted & ~grouped
+        if grouped.any() and other.any():
+            a = s[grouped].iloc[0]
+            b = s[other].iloc[0]
+            raise InputDataError(
+                f"cells such as '{a}' (\".\" grouping thousands) and '{b}' (\".\" as a decimal "
+                "point) in one column of a decimal-comma file: it cannot be read without "
+                "guessing; export the column without thousands separators."
+            )
+        return s
 
     def __init__(self, raw: pd.Series, decimal: str) -> None:
         na = raw.isna().to_numpy()
@@ -200,6 +228,7 @@ class _Column:
             text = raw.astype(object).where(~na, None)
             s = pd.Series(text, dtype=object).str.strip()
             if decimal == ",":
+                s = self._ungroup(s)
                 s = s.str.replace(",", ".", regex=False)
             values = pd.to_numeric(s, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
             bad = np.isnan(values) & ~na
@@ -433,8 +462,21 @@ def monotone_time(t: np.ndarray) -> tuple[np.ndarray, np.ndarray, dict[str, floa
     return tk, idx, stats
 
 
+def _column_of(src: Source, raw: pd.Series, p: int) -> _Column:
+    """:class:`_Column` of position ``p``; a refusal names the file and the column."""
+    try:
+        return _Column(raw, src.decimal)
+    except InputDataError as exc:
+        raise InputDataError(f"{src.path}: column '{src.names[p]}': {exc}") from None
+
+
 def _count_cells(meta: RunMeta, q: str, name: str, c: _Column) -> None:
     """Record a column's bad (non-numeric) and missing cells in the metadata."""
+    if c.grouped:
+        meta.warnings.append(
+            f"Column '{name}' ({q}): {c.grouped} cell(s) use \".\" to group thousands (e.g. "
+            "1.002 = 1002); read so."
+        )
     if c.n_bad:
         meta.bad_cells[q] = meta.bad_cells.get(q, 0) + c.n_bad
         meta.warnings.append(
@@ -581,7 +623,7 @@ def build_run(src: Source, config: Config) -> RunData:
         mp = positions["analyzer_mode"]
         raw[mp] = _mode_codes(raw[mp], config, meta)
     iso_pos = tpos if fmt != "seconds" else None
-    cols = {p: _Column(raw[p], src.decimal) for p in set(positions.values()) if p != iso_pos}
+    cols = {p: _column_of(src, raw[p], p) for p in set(positions.values()) if p != iso_pos}
     for q, p in positions.items():
         if p != iso_pos:
             _count_cells(meta, q, src.names[p], cols[p])
