@@ -24,7 +24,7 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
 from .atomic import atomic_path
-from .errors import ConfigError, DynoqcError
+from .errors import ConfigError, DynoqcError, InputDataError, environment_problem
 
 #: File name patterns taken from a folder given as input.
 RUN_PATTERNS = ("*.csv", "*.csv.gz", "*.tsv", "*.tsv.gz", "*.txt", "*.txt.gz", "*.parquet",
@@ -133,8 +133,11 @@ def process_night(
         cfg = load_config(config_path)
         result = Path(out_dir) / f"{run_stem(path)}.h5"
         for p in joined or [path]:
+            if not p.exists():
+                raise ConfigError(f"{p}: no such file.")
             if not p.is_file():
-                raise DynoqcError(f"{p}: no such file.")
+                raise InputDataError(f"{p}: not a regular file (a folder, pipe or device); "
+                                     "give the log file itself.")
         if joined:
             pass  # rollover files are always processed (their joined digest needs the read)
         elif not force and up_to_date(result, file_sha256(path), cfg.sha256(), __version__):
@@ -162,6 +165,11 @@ def process_night(
             rep.message += "\n" + traceback.format_exc()
     except KeyboardInterrupt:
         raise
+    except OSError as exc:  # permission, disk full, a folder where a file is expected ...
+        err = environment_problem(exc, out_dir)
+        rep.exit_code, rep.message = err.exit_code, str(err)
+        if debug:
+            rep.message += "\n" + traceback.format_exc()
     except Exception as exc:  # an unexpected fault in one night must not stop the batch
         rep.exit_code = 1
         rep.message = (

@@ -18,7 +18,7 @@ import click
 
 from . import __version__
 from .atomic import stop_on_interrupt
-from .errors import DynoqcError
+from .errors import DynoqcError, environment_problem
 
 EXIT_OK, EXIT_INTERNAL, EXIT_CONFIG, EXIT_DATA = 0, 1, 2, 3
 
@@ -39,6 +39,11 @@ def _guarded(debug: bool, fn: Callable[[], Any]) -> Any:
         _fail(str(exc), exc.exit_code)
     except KeyboardInterrupt:
         _fail("interrupted; no partial result was left behind.", 130)
+    except OSError as exc:  # the machine, not dynoqc: permission, disk full, a folder ...
+        if debug:
+            traceback.print_exc()
+        err = environment_problem(exc)
+        _fail(str(err), err.exit_code)
     except Exception as exc:  # an unexpected fault: say so plainly
         if debug:
             traceback.print_exc()
@@ -208,5 +213,25 @@ def report(result: Path, out_dir: Path | None, no_plots: bool, debug: bool) -> N
         click.echo(str(path))
 
 
+def entry() -> None:
+    """The ``dynoqc`` command: :func:`main`, with a reader that closes the pipe early
+    (``dynoqc fuels | head -1``) ending it quietly with exit code 2 (an environment
+    condition, no traceback)."""
+    try:
+        main()
+    except BrokenPipeError:
+        import os
+
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())  # Python flushes stdout once more at exit
+        sys.exit(2)
+    except SystemExit as exc:
+        # click ends a closed pipe (EPIPE) with exit 1, after wrapping stdout so that the
+        # last flush stays quiet; that is the reader's doing, not an internal error
+        if exc.code == 1 and type(sys.stdout).__name__.endswith("PacifyFlushWrapper"):
+            sys.exit(2)
+        raise
+
+
 if __name__ == "__main__":  # pragma: no cover
-    main()
+    entry()

@@ -426,13 +426,20 @@ def _parse_fuel(table: dict[str, Any], path: Path) -> Fuel:
     for k, v in ratios.items():
         if v < 0:
             raise ConfigError(f"{path}: [fuel].{k} must not be negative, got {v}.")
-    return Fuel(
+    if ratios["c"] == 0 and ratios["h_c"] == 0:
+        raise ConfigError(f"{path}: [fuel] has neither carbon (c) nor hydrogen (h_c): nothing "
+                          "burns; give the fuel's atomic ratios or a preset.")
+    fuel = Fuel(
         name="custom",
         **ratios,
         lhv_MJ_per_kg=_optional_number(table, "lhv_MJ_per_kg", "[fuel]", path),
         density_kg_per_m3=_optional_number(table, "density_kg_per_m3", "[fuel]", path),
         source="explicit atomic ratios in the config",
     )
+    if not fuel.o2_stoich_per_c > 0:
+        raise ConfigError(f"{path}: [fuel] with these ratios needs no oxygen to burn "
+                          f"(o_c = {ratios['o_c']:g} is too high): check the ratios.")
+    return fuel
 
 
 def _parse_column(
@@ -774,6 +781,10 @@ def load_config(path: str | Path) -> Config:
         text = path.read_text(encoding="utf-8")
     except FileNotFoundError:
         raise ConfigError(f"{path}: config file not found.") from None
+    except IsADirectoryError:
+        raise ConfigError(f"{path}: is a folder; give the config file (.toml).") from None
+    except OSError as exc:
+        raise ConfigError(f"{path}: cannot read the config file ({exc.strerror}).") from None
     except UnicodeDecodeError:
         raise ConfigError(f"{path}: config file is not UTF-8 text.") from None
     try:

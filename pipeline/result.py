@@ -18,6 +18,7 @@ import h5py
 import numpy as np
 import pandas as pd
 
+from .errors import InputDataError
 from .records import FLAG_COLUMNS, ProcessResult, columns_frame, empty_flags
 
 #: Attributes HDF5 manages itself for dimension scales (not part of our metadata).
@@ -126,48 +127,66 @@ def read_result(
     They must hold every series of the file, at its length.
     """
     path = Path(path)
-    with h5py.File(path, "r", locking="best-effort") as f:
-        if "timeseries" not in f or "time" not in f["timeseries"]:
-            raise ValueError(f"{path}: not a dynoqc result file (no /timeseries/time)")
-        ts = f["timeseries"]
-        names = ["time"] + [n for n in ts if n != "time" and isinstance(ts[n], h5py.Dataset)]
-        if series is None:
-            arrays = {n: ts[n][()] for n in names}
-        else:
-            n_rows = ts["time"].shape[0]
-            wrong = [n for n in names if n not in series or len(series[n]) != n_rows]
-            if wrong:
-                raise ValueError(f"{path}: series given in memory do not match {wrong[:3]}")
-            arrays = series
-        timeseries = columns_frame(
-            {n: np.asarray(arrays[n], dtype=np.float64) for n in names}
-        )
-        series_attrs = {n: _attrs(ts[n]) for n in names}
-        units = {n: str(a.get("units", "")) for n, a in series_attrs.items()}
-        long_names = {n: str(a.get("long_name", "")) for n, a in series_attrs.items()}
+    if not path.is_file():
+        raise InputDataError(f"{path}: no such result file.")
+    try:
+        f = h5py.File(path, "r", locking="best-effort")
+    except OSError as exc:
+        raise InputDataError(
+            f"{path}: not a readable HDF5 file ({str(exc).splitlines()[0]})."
+        ) from None
+    try:
+        with f:
+            return _read_open(path, f, series)
+    except OSError as exc:  # a damaged file: unreadable chunks or metadata
+        raise InputDataError(
+            f"{path}: the result file is damaged ({str(exc).splitlines()[0]})."
+        ) from None
 
-        if "flags" in f:
-            flags = _table(f["flags"])
-            for col in FLAG_COLUMNS:
-                if col not in flags:
-                    raise ValueError(f"{path}: /flags lacks the column {col!r}")
-        else:
-            flags = empty_flags()
 
-        tables: dict[str, pd.DataFrame] = {}
-        group_attrs: dict[str, dict[str, Any]] = {}
+def _read_open(path: Path, f: h5py.File, series: Mapping[str, np.ndarray] | None) -> ResultFile:
+    """:func:`read_result` on an open file."""
+    if "timeseries" not in f or "time" not in f["timeseries"]:
+        raise InputDataError(f"{path}: not a dynoqc result file (no /timeseries/time).")
+    ts = f["timeseries"]
+    names = ["time"] + [n for n in ts if n != "time" and isinstance(ts[n], h5py.Dataset)]
+    if series is None:
+        arrays = {n: ts[n][()] for n in names}
+    else:
+        n_rows = ts["time"].shape[0]
+        wrong = [n for n in names if n not in series or len(series[n]) != n_rows]
+        if wrong:
+            raise ValueError(f"{path}: series given in memory do not match {wrong[:3]}")
+        arrays = series
+    timeseries = columns_frame(
+        {n: np.asarray(arrays[n], dtype=np.float64) for n in names}
+    )
+    series_attrs = {n: _attrs(ts[n]) for n in names}
+    units = {n: str(a.get("units", "")) for n, a in series_attrs.items()}
+    long_names = {n: str(a.get("long_name", "")) for n, a in series_attrs.items()}
 
-        def visit(name: str, obj: h5py.HLObject) -> None:
-            if not isinstance(obj, h5py.Group) or name in ("timeseries", "flags"):
-                return
-            if any(isinstance(v, h5py.Dataset) for v in obj.values()):
-                tables[name] = _table(obj)
-            attrs = _attrs(obj)
-            if attrs:
-                group_attrs[name] = attrs
+    if "flags" in f:
+        flags = _table(f["flags"])
+        for col in FLAG_COLUMNS:
+            if col not in flags:
+                raise ValueError(f"{path}: /flags lacks the column {col!r}")
+    else:
+        flags = empty_flags()
 
-        f.visititems(visit)
-        attrs = _attrs(f)
+    tables: dict[str, pd.DataFrame] = {}
+    group_attrs: dict[str, dict[str, Any]] = {}
+
+    def visit(name: str, obj: h5py.HLObject) -> None:
+        if not isinstance(obj, h5py.Group) or name in ("timeseries", "flags"):
+            return
+        if any(isinstance(v, h5py.Dataset) for v in obj.values()):
+            tables[name] = _table(obj)
+        attrs = _attrs(obj)
+        if attrs:
+            group_attrs[name] = attrs
+
+    f.visititems(visit)
+    attrs = _attrs(f)
 
     start_time = parse_time_units(units["time"])
     return ResultFile(

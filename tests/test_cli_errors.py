@@ -112,3 +112,52 @@ def test_unit_left_to_the_file_but_the_file_has_none(tmp_path: Path) -> None:
     assert res.exit_code == 2, res.output
     assert "[channels.fuel_mass_flow] gives no unit" in res.stderr
     assert "column 'fuel'" in res.stderr and str(cfg) in res.stderr
+
+
+# --- the machine and the user's files, not dynoqc: documented codes, no "internal error" ----
+def _cli(args: list[str]) -> object:
+    return CliRunner().invoke(main, args)
+
+
+def test_environment_and_file_problems_have_their_exit_codes(tmp_path: Path) -> None:
+    import os
+
+    cfg = ROOT / "configs" / "cell_b3.toml"
+    fifo = tmp_path / "pipe.csv"
+    os.mkfifo(fifo)
+    cases = [
+        (["process", str(fifo), "--config", str(cfg), "--out", str(tmp_path / "o")], 3,
+         "not a regular file"),
+        (["process", str(tmp_path / "nope.csv"), "--config", str(cfg), "--out",
+          str(tmp_path / "o")], 2, "no such file"),
+        (["process", str(SAMPLE), "--config", str(tmp_path), "--out", str(tmp_path / "o")],
+         2, "is a folder"),
+    ]
+    (tmp_path / "text.h5").write_text("not hdf5")
+    cases += [
+        (["report", str(tmp_path / "missing.h5")], 3, "no such result file"),
+        (["report", str(tmp_path / "text.h5")], 3, "not a readable HDF5 file"),
+    ]
+    for args, code, phrase in cases:
+        r = _cli(args)
+        assert r.exit_code == code, (args, r.output)
+        assert phrase in r.output and "internal error" not in r.output, r.output
+
+
+def test_a_fuel_with_no_atoms_is_a_config_error(tmp_path: Path) -> None:
+    bad = tmp_path / "c.toml"
+    bad.write_text(CONFIG.replace('preset = "diesel_2"', "h_c = 0\nc = 0"))
+    assert "h_c = 0" in bad.read_text()
+    r = _cli(["process", str(SAMPLE), "--config", str(bad), "--out", str(tmp_path / "o")])
+    assert r.exit_code == 2 and "nothing burns" in r.output and str(bad) in r.output
+
+
+def test_a_closed_pipe_is_not_an_internal_error() -> None:
+    # `dynoqc fuels | head -1`: the reader went away; quiet, exit 2, no traceback.
+    import subprocess
+    import sys
+
+    cmd = (f"{sys.executable} -c 'from pipeline.cli import entry; entry()' fuels "
+           "| head -1 >/dev/null; echo ${PIPESTATUS[0]}")
+    out = subprocess.run(["bash", "-c", cmd], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "2" and "Traceback" not in out.stderr

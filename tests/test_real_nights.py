@@ -350,3 +350,27 @@ def test_too_little_running_is_not_enough_data(tmp_path: Path) -> None:
     v = res.tables["verdicts"]
     assert set(v["status"]) == {"not enough data"}
     assert all("not enough data to judge" in line for line in v["line"])
+
+
+def test_a_file_growing_while_it_is_read_is_refused(tmp_path: Path, monkeypatch) -> None:
+    # The recorded source_sha256 must stand for the bytes read: a log the logger is still
+    # appending to is refused (exit 3), not recorded with a digest of other bytes.
+    import pipeline.ingest as ingest
+    from pipeline.errors import InputDataError
+
+    sc = dataclasses.replace(cell_b3_scenario(), duration_h=0.2, faults=[], cal_windows=[],
+                             dropouts=[], line_heater_trips=[], seed=6)
+    log, _ = make_night(sc)
+    path = tmp_path / "growing.csv"
+    write_csv(log, path, units=log.attrs["units"], metadata=METADATA)
+    real = ingest.read_csv_run
+
+    def read_then_grow(p, cfg):  # the logger writes a row while dynoqc reads
+        run = real(p, cfg)
+        with open(p, "a") as fh:
+            fh.write(fh.name and "720.0" + ",1" * 15 + "\n")
+        return run
+
+    monkeypatch.setattr(ingest, "read_csv_run", read_then_grow)
+    with pytest.raises(InputDataError, match="changed while it was read"):
+        process_run(path, SAMPLE_CONFIG)

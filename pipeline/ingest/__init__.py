@@ -105,19 +105,38 @@ def read_run(path: Path, config: Config) -> RunData:
     Raises InputDataError (exit 3) for a missing, empty, binary or header-only file, a mapped
     column not in the file (with close matches), or a time/fuel/air flow column without any
     number; ConfigError (exit 2) for a unit that does not fit its quantity or a missing
-    optional reader (asammdf). The input file is only read, never written.
+    optional reader (asammdf). The input file is only read, never written. A file that
+    changes while it is read (a logger still writing it) is refused (exit 3): the recorded
+    ``source_sha256`` then could not stand for the bytes that were read.
     """
     path = Path(path)
+    before = _stamp(path)
     fmt = detect_format(path)
     if fmt == "parquet":
         from .parquet import read_parquet_run
 
-        return read_parquet_run(path, config)
-    if fmt == "mdf":
+        run = read_parquet_run(path, config)
+    elif fmt == "mdf":
         from .mdf import read_mdf_run
 
-        return read_mdf_run(path, config)
-    return read_csv_run(path, config)
+        run = read_mdf_run(path, config)
+    else:
+        run = read_csv_run(path, config)
+    if _stamp(path) != before:
+        raise InputDataError(
+            f"{path}: the file changed while it was read (a logger still writing it?); "
+            "process it once the logger has closed it."
+        )
+    return run
+
+
+def _stamp(path: Path) -> tuple[int, int]:
+    """(size, modification time in ns) of a file, to notice a change while it is read."""
+    try:
+        st = path.stat()
+    except OSError:
+        return (-1, -1)
+    return (st.st_size, st.st_mtime_ns)
 
 
 @contextmanager

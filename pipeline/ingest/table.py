@@ -184,6 +184,17 @@ def _file_unit(src: Source, idx: int) -> str | None:
     return unit
 
 
+#: Longest part of a cell quoted in a message or note (a junk cell may be megabytes).
+QUOTE_MAX = 40
+
+
+def quote_cell(value: object) -> str:
+    """A cell as it may be echoed: control characters (NUL included) shown as ``?``, at
+    most :data:`QUOTE_MAX` characters with ``...`` when cut."""
+    text = re.sub(r"[\x00-\x1f\x7f]", "?", str(value))
+    return text if len(text) <= QUOTE_MAX else text[:QUOTE_MAX] + "..."
+
+
 #: A number with "." grouping the thousands in a decimal-comma file: 1.002 or 12.345,6.
 _GROUPED = re.compile(r"[+-]?[1-9]\d{0,2}(?:\.\d{3})+(?:,\d*)?")
 
@@ -206,8 +217,8 @@ class _Column:
             return s.str.replace(".", "", regex=False)
         other = dotted & ~grouped
         if grouped.any() and other.any():
-            a = s[grouped].iloc[0]
-            b = s[other].iloc[0]
+            a = quote_cell(s[grouped].iloc[0])
+            b = quote_cell(s[other].iloc[0])
             raise InputDataError(
                 f"cells such as '{a}' (\".\" grouping thousands) and '{b}' (\".\" as a decimal "
                 "point) in one column of a decimal-comma file: it cannot be read without "
@@ -239,8 +250,8 @@ class _Column:
         self.values = values
         self.n_missing = int(na.sum())
         self.n_bad = int(bad.sum())
-        self.bad_example = str(raw.iloc[int(np.argmax(bad))]) if self.n_bad else ""
-        self.examples = [str(v) for v in raw.iloc[np.flatnonzero(~na)[:3]]]
+        self.bad_example = quote_cell(raw.iloc[int(np.argmax(bad))]) if self.n_bad else ""
+        self.examples = [quote_cell(v) for v in raw.iloc[np.flatnonzero(~na)[:3]]]
 
 
 def _localize(ts: pd.Series, tz: str | None, where: str, meta: RunMeta) -> pd.Series:
@@ -724,10 +735,10 @@ def _mode_codes(raw: pd.Series, config: Config, meta: RunMeta) -> pd.Series:
     if mapped.notna().any():
         meta.warnings.append(
             f"analyzer_mode is text: {int(mapped.notna().sum())} cell(s) read as bench states "
-            f"({', '.join(sorted({str(v) for v in raw[mapped.notna()].unique()[:6]}))})."
+            f"({', '.join(sorted({quote_cell(v) for v in raw[mapped.notna()].unique()[:6]}))})."
         )
     if not known.all():
-        unknown = sorted({str(v) for v in raw[~known].unique()[:5]})
+        unknown = sorted({quote_cell(v) for v in raw[~known].unique()[:5]})
         meta.warnings.append(
             f"analyzer_mode: unknown bench state word(s) {', '.join(unknown)}; name them in "
             "[channels.analyzer_mode] states."
@@ -884,10 +895,10 @@ def _iso_seconds(
         meta.warnings.append(
             f"Column '{tname}' (time): {int(bad.sum())} cell(s) are not "
             f"{'ISO 8601 time stamps' if fmt == 'iso8601' else 'readable dates and times'}, "
-            f"e.g. '{traw[bad].iloc[0]}'."
+            f"e.g. '{quote_cell(traw[bad].iloc[0])}'."
         )
     if nat.all():
-        examples = [str(v) for v in traw[~na].head(3)]
+        examples = [quote_cell(v) for v in traw[~na].head(3)]
         _no_numbers(src, config.channels["time"], examples, "ISO 8601 time stamps")
     t0 = ts[~nat].iloc[0]
     meta.start_time = t0.to_pydatetime()

@@ -128,12 +128,22 @@ def _attr_value(key: str, value: Any) -> Any:
     )
 
 
+def _no_nul(value: Any) -> Any:
+    """HDF5 variable-length strings end at a NUL: text carrying one (a NUL-padded log line
+    quoted in a note) gets ``?`` in its place."""
+    if isinstance(value, str):
+        return value.replace("\x00", "?")
+    if isinstance(value, np.ndarray) and value.dtype == object:
+        return np.array([_no_nul(v) for v in value], dtype=value.dtype)
+    return value
+
+
 def _set_attrs(obj: h5py.HLObject, attrs: Mapping[str, Any]) -> None:
     """Set attributes on a group or dataset; ``None`` values (unknown) are left out."""
     for key, value in attrs.items():
         if value is None:
             continue
-        obj.attrs[key] = _attr_value(key, value)
+        obj.attrs[key] = _no_nul(_attr_value(key, value))
 
 
 def _finite_or_nan(values: Any, name: str) -> np.ndarray:
@@ -320,7 +330,7 @@ def _column_data(table: str, col: str, values: pd.Series) -> tuple[np.ndarray, A
         return np.array(text, dtype=object), _STR
     if pd.api.types.is_numeric_dtype(values.dtype):  # nullable integer / float extension types
         return _finite_or_nan(values.to_numpy(dtype=np.float64, na_value=np.nan), col), np.float64
-    text = ["" if _is_missing(v) else str(v) for v in values]
+    text = ["" if _is_missing(v) else str(v).replace("\x00", "?") for v in values]
     return np.array(text, dtype=object), _STR
 
 
