@@ -103,3 +103,17 @@ def label(instrument: str) -> str:
     if len(parts) > 1:
         return " or ".join(INSTRUMENT_LABELS.get(p, p) for p in parts)
     return instrument
+
+
+#: Unit of a flag's ``value`` by check (``/flags/value_unit``); out_of_range states its own
+#: (percent of the range, or the reading's unit).
+FLAG_VALUE_UNITS: dict[str, str] = {
+    "drift": "percent",  # the suspect's lambda estimate moved by this
+    "lambda_disagreement": "percent",
+    "data_gap": "s",
+    "analyzer_not_sampling": "1",  # samples
+    "engine_off": "s",
+    "condensation_risk": "K",  # smallest line temperature - dew point
+    "time_irregular": "s",
+    "method_invalid": "1",
+}

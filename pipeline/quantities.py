@@ -84,6 +84,15 @@ _DERIVED = [
     Quantity("sampling", "1", "1 where the analyzers sample exhaust, 0 where not", "derived"),
     Quantity("valid", "1", "1 where all three lambda estimates are defined", "derived"),
     Quantity("engine_state", "1", "engine operating state (0 off, 1 starting, 2 idle, 3 running)", "derived"),
+    Quantity("steady", "1", "1 where the engine holds a steady operating point", "check"),
+    Quantity("fuel_mass_flow_carbon", "kg/h", "fuel mass flow implied by air flow and exhaust carbon (fuel_mass_flow * lambda_flow / lambda_carbon)", "check"),
+    Quantity("residual_fuel_flow", "1", "fuel_mass_flow_carbon / fuel_mass_flow - 1", "check"),
+    Quantity("residual_carbon_flow", "1", "lambda_carbon / lambda_flow - 1", "check"),
+    Quantity("residual_oxygen_flow", "1", "lambda_oxygen / lambda_flow - 1", "check"),
+    Quantity("residual_oxygen_carbon", "1", "lambda_oxygen / lambda_carbon - 1", "check"),
+    Quantity("residual_sensor_flow", "1", "lambda_sensor / lambda_flow - 1", "check"),
+    Quantity("residual_sensor_carbon", "1", "lambda_sensor / lambda_carbon - 1", "check"),
+    Quantity("residual_sensor_oxygen", "1", "lambda_sensor / lambda_oxygen - 1", "check"),
     Quantity("bench_state", "1", "what the analyzers see (0 sample, 1 zero, 2 span, 3 purge, 4 leak_check, 5 not_exhaust, 6 response)", "derived"),
 ]
 # fmt: on
@@ -93,6 +102,73 @@ DERIVED: dict[str, Quantity] = {q.name: q for q in _DERIVED}
 
 #: Concentration channels that the analyzers deliver (subject to transport delay and basis).
 GASES = tuple(q.name for q in _INPUTS if q.kind == "gas")
+
+
+#: Columns of the result tables that are not series of the glossary: (units or None for
+#: text, long name). ``<q>_mean`` / ``<q>_std`` of a glossary series, the emissions
+#: ``<species>_g``, ``_g_h``, ``_g_per_kWh`` and ``_driftcor`` forms are derived by rule in
+#: :func:`table_column`.
+TABLE_COLUMNS: dict[str, tuple[str | None, str]] = {
+    "start_s": ("s", "start of the interval, time since start of run"),
+    "end_s": ("s", "end of the interval, time since start of run"),
+    "onset_s": ("s", "onset of the drift, time since start of run"),
+    "samples": ("1", "number of samples used"),
+    "duration_h": ("h", "time covered by the samples used"),
+    "label": (None, "steady point (SPnn) or the whole night"),
+    "work_kWh": ("kW.h", "brake work"),
+    "fuel_g": ("g", "fuel burned"),
+    "bsfc_g_per_kWh": ("g/(kW.h)", "brake-specific fuel consumption"),
+    "m_c_fuel_g": ("g", "carbon mass in the fuel burned (40 CFR 1065.643)"),
+    "m_c_air_g": ("g", "carbon mass in the intake air (40 CFR 1065.643)"),
+    "m_c_exh_g": ("g", "carbon mass in the exhaust (40 CFR 1065.643)"),
+    "eps_aC_g": ("g", "absolute carbon-balance error (40 CFR 1065.643)"),
+    "eps_aCrate_g_per_h": ("g/h", "carbon-balance error rate (40 CFR 1065.643)"),
+    "eps_rC": ("1", "relative carbon-balance error (40 CFR 1065.643)"),
+    "carbon_balance_verdict": (None, "carbon-balance error against the configured limits"),
+    "driftcor_coverage": ("1", "share of the samples the drift correction covers"),
+    "drift_validation": (None, "corrected vs uncorrected results within the 1065.550 limit"),
+    "carbon_balance_error": ("1", "relative carbon-balance error of the steady point"),
+    "residual": (None, "residual series"),
+    "baseline": ("1", "median residual of the baseline blocks"),
+    "noise_pct": ("percent", "robust noise of the residual's block medians"),
+    "blocks": ("1", "number of steady blocks of the residual"),
+    "size_pct": ("percent", "size of the drift (shift of the residual)"),
+    "rate_pct_per_h": ("percent/h", "rate of a ramp drift"),
+    "kind": (None, "shape or kind (step or ramp; zero or span)"),
+    "min_detectable_drift_pct": ("percent", "smallest drift this night's noise lets be found"),
+    "detected": ("1", "1 where a drift was found"),
+    "value_unit": (None, "unit of value"),
+    "gas": (None, "analyzer channel"),
+    "source": (None, "where the reading comes from: the log's windows or the config"),
+    "error_pct_of_span": ("percent", "reading minus reference, in percent of the span gas"),
+}
+
+#: Emission species of the tables and their plain names.
+_SPECIES = {"co2": "CO2", "co": "CO", "nox": "NOx (as NO2)", "thc": "THC (C1)"}
+
+
+def table_column(name: str) -> tuple[str | None, str] | None:
+    """(units or None for text, long name) of a result-table column, or None when unknown."""
+    if name in TABLE_COLUMNS:
+        return TABLE_COLUMNS[name]
+    for suffix, what in (("_mean", "mean"), ("_std", "standard deviation")):
+        base = name.removesuffix(suffix)
+        q = describe(base) if base != name else None
+        if q is not None:
+            return q.unit, f"{what} over the steady point of: {q.long_name}"
+    corrected = name.endswith("_driftcor")
+    base = name.removesuffix("_driftcor")
+    for sp, label in _SPECIES.items():
+        for suffix, unit, what in (("_g_per_kWh", "g/(kW.h)", "brake-specific"),
+                                   ("_g_h", "g/h", "mean mass rate of"),
+                                   ("_g", "g", "mass of")):
+            if base == f"{sp}{suffix}":
+                tail = ", drift-corrected (40 CFR 1065.672)" if corrected else ""
+                return unit, f"{what} {label}{tail}"
+        if base == f"{sp}_driftcor_diff" or name == f"{sp}_driftcor_diff":
+            return "1", f"{label}: drift-corrected vs uncorrected, relative (1065.550)"
+    q = describe(name)
+    return (q.unit, q.long_name) if q is not None else None
 
 
 def describe(name: str) -> Quantity | None:

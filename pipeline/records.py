@@ -54,7 +54,7 @@ def with_columns(frame: pd.DataFrame, updates: Mapping[str, Any]) -> pd.DataFram
 
 
 def empty_flags() -> pd.DataFrame:
-    """An empty flags table with the contract's columns and dtypes."""
+    """An empty flags table with the contract's columns (and ``value_unit``) and dtypes."""
     return pd.DataFrame(
         {
             "start_s": pd.Series(dtype="float64"),
@@ -64,6 +64,7 @@ def empty_flags() -> pd.DataFrame:
             "severity": pd.Series(dtype="object"),
             "value": pd.Series(dtype="float64"),
             "message": pd.Series(dtype="object"),
+            "value_unit": pd.Series(dtype="object"),
         }
     )
 
@@ -75,7 +76,7 @@ class Flag:
     start_s, end_s: the interval [s since start]; check: the check that raised it; suspect:
     the instrument(s) blamed, ``|``-separated ("" for none, "time" for the logger clock);
     severity: ``info`` | ``warning`` | ``error``; value: the check's number (its meaning is
-    in the check's documentation); message: one plain sentence.
+    in the check's documentation); message: one plain sentence; unit: of ``value``.
     """
 
     start_s: float
@@ -85,6 +86,7 @@ class Flag:
     severity: str = "warning"
     value: float = float("nan")
     message: str = ""
+    unit: str = ""  # of ``value``; "" takes the check's (instruments.FLAG_VALUE_UNITS)
 
 
 def make_flags(rows: Sequence[Flag | Mapping[str, Any]]) -> pd.DataFrame:
@@ -92,11 +94,16 @@ def make_flags(rows: Sequence[Flag | Mapping[str, Any]]) -> pd.DataFrame:
     value -> NaN)."""
     if not rows:
         return empty_flags()
+    from .instruments import FLAG_VALUE_UNITS
+
     df = pd.DataFrame([asdict(r) if isinstance(r, Flag) else dict(r) for r in rows])
     for col in FLAG_COLUMNS:
         if col not in df:
             df[col] = float("nan") if col == "value" else ""
-    df = df[list(FLAG_COLUMNS)]
+    unit = df["unit"].fillna("").astype(str) if "unit" in df else pd.Series("", index=df.index)
+    default = df["check"].astype(str).map(FLAG_VALUE_UNITS).fillna("1")
+    df["value_unit"] = unit.where(unit != "", default).astype(object)
+    df = df[[*FLAG_COLUMNS, "value_unit"]]
     df["start_s"] = df["start_s"].astype("float64")
     df["end_s"] = df["end_s"].astype("float64")
     df["value"] = df["value"].astype("float64")

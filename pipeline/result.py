@@ -100,8 +100,15 @@ def _column(ds: h5py.Dataset) -> np.ndarray:
     return ds[()]
 
 
+def _is_scale(ds: h5py.Dataset) -> bool:
+    """A dimension scale (a table's row dimension), not a column."""
+    value = ds.attrs.get("CLASS")
+    return value in (b"DIMENSION_SCALE", "DIMENSION_SCALE")
+
+
 def _table(g: h5py.Group) -> pd.DataFrame:
-    cols = {name: _column(ds) for name, ds in g.items() if isinstance(ds, h5py.Dataset)}
+    cols = {name: _column(ds) for name, ds in g.items()
+            if isinstance(ds, h5py.Dataset) and not _is_scale(ds)}
     lengths = {len(v) for v in cols.values()}
     if len(lengths) > 1:
         raise ValueError(f"{g.file.filename}: table {g.name} has columns of unequal length")

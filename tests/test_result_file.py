@@ -10,6 +10,7 @@ import h5py
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import ROOT
 
 from pipeline.records import FLAG_COLUMNS, ProcessResult, empty_flags, make_flags
 from pipeline.report import hdf5 as hdf5_mod
@@ -127,20 +128,26 @@ def test_contract_layout(tmp_path: Path) -> None:
         assert ts["exhaust_dew_point"].attrs["units"] == "degC"
 
         fl = f["flags"]
-        assert list(fl) == list(FLAG_COLUMNS)
+        # the row dimension, the contract's columns, then value_unit (compatible extensions)
+        assert list(fl) == ["flag", *FLAG_COLUMNS, "value_unit"]
+        assert fl["flag"].attrs["CLASS"] == b"DIMENSION_SCALE"
         assert {len(fl[c]) for c in fl} == {2}
         for col in ("start_s", "end_s", "value"):
             assert fl[col].dtype == np.float64
         for col in ("check", "suspect", "severity", "message"):
             assert h5py.check_string_dtype(fl[col].dtype).encoding == "utf-8"
             assert h5py.check_string_dtype(fl[col].dtype).length is None  # variable length
-        assert fl["start_s"].attrs["units"] == "s"
+        # seconds since the start, said the CF way when the start is known (xarray decodes
+        # them to datetimes); the values are unchanged
+        assert fl["start_s"].attrs["units"] == ts["time"].attrs["units"]
         assert fl["message"].asstr()[0].endswith("– drift")
 
         sp = f["steady_points"]
-        assert list(sp) == ["start_s", "end_s", "n_samples", "label", "lambda_flow_mean"]
+        assert list(sp) == ["point", "start_s", "end_s", "n_samples", "label",
+                            "lambda_flow_mean"]
         assert sp["n_samples"].dtype == np.int64
-        assert sp["start_s"].attrs["units"] == "s"
+        assert sp["start_s"].attrs["units"] == ts["time"].attrs["units"]
+        assert all("long_name" in sp[c].attrs for c in sp)
         assert np.isnan(sp["lambda_flow_mean"][1])
         assert f["alignment"].attrs["analyzer_delay_s"] == 8.5
         assert f["alignment"].attrs["method"] == "cross-correlation"
@@ -175,7 +182,7 @@ def test_round_trip(tmp_path: Path) -> None:
     exp_sp = res.tables["steady_points"].replace([np.inf], np.nan)
     pd.testing.assert_frame_equal(sp, exp_sp, check_dtype=False)
     assert sp["n_samples"].dtype == np.int64
-    assert sp.attrs["units"]["end_s"] == "s"
+    assert sp.attrs["units"]["end_s"] == f"seconds since {START}"
 
     assert back.group_attrs == {"alignment": res.group_attrs["alignment"]}
     for key, value in res.attrs.items():
@@ -186,12 +193,12 @@ def test_round_trip(tmp_path: Path) -> None:
 def test_empty_flags_round_trip(tmp_path: Path) -> None:
     out = write_result(tmp_path / "r.h5", _result(flags=empty_flags()))
     with h5py.File(out, "r") as f:
-        assert list(f["flags"]) == list(FLAG_COLUMNS)
+        assert list(f["flags"]) == ["flag", *FLAG_COLUMNS, "value_unit"]
         assert all(f["flags"][c].shape == (0,) for c in FLAG_COLUMNS)
         assert h5py.check_string_dtype(f["flags/check"].dtype) is not None
     back = read_result(out)
     assert len(back.flags) == 0
-    assert list(back.flags.columns) == list(FLAG_COLUMNS)
+    assert list(back.flags.columns)[: len(FLAG_COLUMNS)] == list(FLAG_COLUMNS)
     assert back.flags["start_s"].dtype == np.float64
     assert back.flags["check"].dtype == object
 
@@ -431,3 +438,34 @@ def test_an_interrupt_lost_on_its_way_up_commits_nothing(tmp_path: Path) -> None
     with atomic_path(tmp_path / "r.h5") as tmp:
         tmp.write_text("ok")
     assert (tmp_path / "r.h5").read_text() == "ok"
+
+
+def test_tables_open_in_xarray_with_named_rows_and_decoded_times(tmp_path: Path) -> None:
+    # Reference readers (xarray over h5netcdf, as a netCDF user opens the file): every table
+    # has a named row dimension (no phony_dim warning), interval times decode to datetimes,
+    # every column has a long_name and every numeric column units (flags/value: its unit is
+    # per row, in value_unit).
+    import warnings
+
+    xr = pytest.importorskip("xarray")
+    pytest.importorskip("h5netcdf")
+    from pipeline import process_to_files
+
+    out = process_to_files(ROOT / "sample_runs" / "cell_b3_2026-03-14.csv.gz",
+                           ROOT / "configs" / "cell_b3.toml", tmp_path, plots=False)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        for group, dim in (("flags", "flag"), ("steady_points", "point"),
+                           ("drift", "drift_row"), ("verdicts", "verdict_row"),
+                           ("emissions", "emissions_row")):
+            ds = xr.open_dataset(out.result_file, group=group, engine="h5netcdf")
+            assert list(ds.sizes) == [dim]
+            if "start_s" in ds:
+                assert np.issubdtype(ds["start_s"].dtype, np.datetime64)
+            ds.close()
+    with h5py.File(out.result_file) as f:
+        for group in ("flags", "steady_points", "drift", "verdicts", "emissions"):
+            for name, col in f[group].items():
+                assert "long_name" in col.attrs, (group, name)
+                if col.dtype.kind in "fiu" and (group, name) != ("flags", "value"):
+                    assert "units" in col.attrs, (group, name)

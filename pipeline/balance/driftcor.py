@@ -204,4 +204,8 @@ def apply_drift_correction(
         "start_s": "s", "end_s": "s", "value": "mol/mol", "reference": "mol/mol",
         "error_pct_of_span": "percent",
     }
+    readings.attrs["long_names"] = {
+        "value": "zero or span reading of the analyzer (canonical units)",
+        "reference": "zero or span gas value (the bottle)",
+    }
     return with_columns(frame, corrected), readings, notes

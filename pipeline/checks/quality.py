@@ -106,6 +106,7 @@ def out_of_range_flags(
                         value=value,
                         message=f"{col} reads {what} ({detail} at worst, "
                         f"{int(np.sum(mask[i0 : i1 + 1]))} samples).",
+                        unit="percent" if full else ("mol/mol" if is_gas else "1"),
                     )
                 )
     return rows

@@ -48,7 +48,7 @@ import numpy as np
 import pandas as pd
 
 from ..atomic import atomic_path
-from ..quantities import describe
+from ..quantities import describe, table_column
 from ..records import FLAG_COLUMNS, ProcessResult
 
 #: CF conventions version declared in the root attributes.
@@ -334,18 +334,37 @@ def _column_data(table: str, col: str, values: pd.Series) -> tuple[np.ndarray, A
     return np.array(text, dtype=object), _STR
 
 
+#: Name of each table's row dimension (a dimension scale, so netCDF readers and xarray open
+#: the group with a named dimension); other tables use ``<table>_row``.
+ROW_DIMENSIONS = {
+    "flags": "flag", "steady_points": "point", "drift": "drift_row", "verdicts": "verdict_row",
+    "emissions": "emissions_row", "drift_correction": "reading",
+}
+
+
 def _write_table(
     f: h5py.File,
     name: str,
     df: pd.DataFrame,
     column_attrs: Mapping[str, Mapping[str, Any]] | None = None,
+    time_units: str = "s",
 ) -> None:
-    """A table as a group of equal-length 1-D column datasets (column order kept)."""
+    """A table as a group of equal-length 1-D column datasets (column order kept), each with
+    ``units`` (numbers) and ``long_name`` from the table, the glossary or the table-column
+    glossary (:func:`pipeline.quantities.table_column`), and the row dimension scale of
+    :data:`ROW_DIMENSIONS`. Interval times (``start_s``, ``end_s``, ``onset_s``) carry
+    ``time_units`` (CF ``seconds since <start>`` when the run's start is known)."""
     if df.columns.duplicated().any():
         raise ValueError(f"table {name!r} has duplicate column names")
     g = f.require_group(name) if name in f else f.create_group(name, track_order=True)
     units = dict(df.attrs.get("units", {}) or {})
     long_names = dict(df.attrs.get("long_names", {}) or {})
+    dim = ROW_DIMENSIONS.get(name, f"{name}_row")
+    if dim in df.columns:
+        dim = f"{dim}_index"
+    row = g.create_dataset(dim, data=np.arange(len(df), dtype=np.int64), track_times=False)
+    row.make_scale(dim)
+    _set_attrs(row, {"long_name": f"row of the {name} table", "units": "1"})
     for col in df.columns:
         data, dtype = _column_data(name, str(col), df[col])
         kwargs: dict[str, Any] = {"track_times": False}
@@ -362,10 +381,20 @@ def _write_table(
             attrs["long_name"] = long_names[str(col)]
         elif q is not None:
             attrs.setdefault("long_name", q.long_name)
+        known = table_column(str(col))
+        if known is not None:
+            unit, long_name = known
+            if unit is not None and dtype is not _STR:
+                attrs.setdefault("units", unit)
+            attrs.setdefault("long_name", long_name)
+        attrs.setdefault("long_name", str(col).replace("_", " "))
+        if str(col) in ("start_s", "end_s", "onset_s") and dtype is np.float64:
+            attrs["units"] = time_units
         _set_attrs(ds, attrs)
+        ds.dims[0].attach_scale(row)
 
 
-def _write_flags(f: h5py.File, flags: pd.DataFrame | None) -> None:
+def _write_flags(f: h5py.File, flags: pd.DataFrame | None, time_units: str = "s") -> None:
     if flags is None:
         flags = pd.DataFrame(columns=list(FLAG_COLUMNS))
     missing = [c for c in FLAG_COLUMNS if c not in flags.columns]
@@ -381,7 +410,7 @@ def _write_flags(f: h5py.File, flags: pd.DataFrame | None) -> None:
     for col in ("check", "suspect", "severity", "message"):
         out[col] = out[col].astype(object)
     out = out[list(FLAG_COLUMNS) + [c for c in out.columns if c not in FLAG_COLUMNS]]
-    _write_table(f, "flags", out, FLAG_COLUMN_ATTRS)
+    _write_table(f, "flags", out, FLAG_COLUMN_ATTRS, time_units)
 
 
 def _fill(f: h5py.File, result: ProcessResult, threads: int | None) -> None:
@@ -397,11 +426,13 @@ def _fill(f: h5py.File, result: ProcessResult, threads: int | None) -> None:
         root_attrs["tool_version"] = __version__
     _set_attrs(f, root_attrs)
     _write_timeseries(f, result, threads)
-    _write_flags(f, result.flags)
+    start = result.attrs.get("start_time_utc")
+    time_units = f"seconds since {iso_utc(start)}" if start else "s"
+    _write_flags(f, result.flags, time_units)
     for name, table in result.tables.items():
         if name in ("timeseries", "flags"):
             raise ValueError(f"table name {name!r} is reserved by the result file layout")
-        _write_table(f, name, table)
+        _write_table(f, name, table, time_units=time_units)
     for name, attrs in result.group_attrs.items():
         g = f.require_group(name) if name in f else f.create_group(name, track_order=True)
         _set_attrs(g, attrs)
