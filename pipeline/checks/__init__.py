@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from ..instruments import CORE_INSTRUMENTS
-from ..quantities import GASES
+from ..quantities import DERIVED, GASES
 from ..records import Flag, make_flags
 from ..states import running
 from . import attribution as attr_mod
@@ -68,22 +68,9 @@ def _column(df: pd.DataFrame, name: str, n: int, default: float = np.nan) -> np.
 
 
 def _series_attrs(residual_names: list[str]) -> dict[str, dict[str, Any]]:
-    attrs: dict[str, dict[str, Any]] = {
-        "steady": {"units": "1", "long_name": "1 where the engine holds a steady operating point"},
-        "fuel_mass_flow_carbon": {
-            "units": "kg/h",
-            "long_name": "fuel mass flow implied by air flow and exhaust carbon "
-            "(fuel_mass_flow * lambda_flow / lambda_carbon)",
-        },
-        "residual_fuel_flow": {
-            "units": "1",
-            "long_name": "fuel_mass_flow_carbon / fuel_mass_flow - 1",
-        },
-    }
-    for name in residual_names:
-        a, b = name.removeprefix("residual_").split("_")
-        attrs[name] = {"units": "1", "long_name": f"lambda_{a} / lambda_{b} - 1"}
-    return attrs
+    """``units`` and ``long_name`` of the checks' series, from the glossary."""
+    names = ["steady", "fuel_mass_flow_carbon", "residual_fuel_flow", *residual_names]
+    return {n: {"units": DERIVED[n].unit, "long_name": DERIVED[n].long_name} for n in names}
 
 
 def _judged_mask(derived: pd.DataFrame, n: int) -> np.ndarray:
