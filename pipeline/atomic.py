@@ -21,6 +21,22 @@ from typing import Any
 #: renames a file into place, so an interrupted run never commits a result.
 _interrupted = threading.Event()
 
+#: The signal that stopped the run (SIGINT, SIGTERM or SIGHUP), for the exit code 128 + it.
+_signal_received: list[int] = []
+
+
+class Terminated(KeyboardInterrupt):
+    """The run was asked to stop by a signal (SIGTERM, SIGHUP): handled like Ctrl-C."""
+
+    def __init__(self, signum: int) -> None:
+        super().__init__(signum)
+        self.signum = signum
+
+
+def stop_signal() -> int:
+    """The signal that stopped the run (SIGINT when none was recorded)."""
+    return _signal_received[-1] if _signal_received else int(signal.SIGINT)
+
 
 def interrupt_requested() -> bool:
     """True once Ctrl-C was pressed under :func:`stop_on_interrupt`."""
@@ -29,26 +45,34 @@ def interrupt_requested() -> bool:
 
 @contextmanager
 def stop_on_interrupt() -> Iterator[None]:
-    """Within the block, Ctrl-C (SIGINT) both raises KeyboardInterrupt and sets the flag of
-    :func:`interrupt_requested`; at the end of the block a set flag raises KeyboardInterrupt
-    (an interrupt lost on its way up still stops the run). The flag is cleared on entry and
-    exit. Main thread only; elsewhere a no-op."""
+    """Within the block, Ctrl-C (SIGINT), SIGTERM and SIGHUP all raise KeyboardInterrupt
+    (:class:`Terminated` for the last two) and set the flag of :func:`interrupt_requested`;
+    at the end of the block a set flag raises KeyboardInterrupt (an interrupt lost on its
+    way up still stops the run). The flag is cleared on entry and exit. Main thread only;
+    elsewhere a no-op."""
     if threading.current_thread() is not threading.main_thread():
         yield
         return
 
     def handler(signum: int, frame: Any) -> None:
         _interrupted.set()
-        raise KeyboardInterrupt
+        _signal_received.append(signum)
+        if signum == signal.SIGINT:
+            raise KeyboardInterrupt
+        raise Terminated(signum)
 
     _interrupted.clear()
-    previous = signal.signal(signal.SIGINT, handler)
+    _signal_received.clear()
+    signals = [signal.SIGINT] + [getattr(signal, n) for n in ("SIGTERM", "SIGHUP")
+                                 if hasattr(signal, n)]
+    previous = {s: signal.signal(s, handler) for s in signals}
     try:
         yield
         if _interrupted.is_set():
             raise KeyboardInterrupt
     finally:
-        signal.signal(signal.SIGINT, previous)
+        for s, h in previous.items():
+            signal.signal(s, h)
         _interrupted.clear()
 
 

@@ -83,6 +83,54 @@ def file_sha256(path: Path) -> str:
         return hashlib.file_digest(fh, "sha256").hexdigest()
 
 
+def outputs_complete(result: Path, plots: bool) -> bool:
+    """Whether every output of the night's last run exists: its JSON summary (written last)
+    lists them all, and it was made with figures when figures are asked for now."""
+    summary = result.with_name(f"{result.stem}_summary.json")
+    try:
+        data = json.loads(summary.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return False
+    names = data.get("outputs") if isinstance(data, dict) else None
+    if not isinstance(names, list) or (plots and not data.get("plots")):
+        return False
+    return all((result.parent / str(n)).is_file() for n in names)
+
+
+def remove_stale_temporaries(out_dir: Path, stem: str) -> int:
+    """Remove the temporary files a killed run of this night left in ``out_dir``
+    (``.<stem>*.tmp``, :func:`pipeline.atomic.atomic_path`); how many were removed."""
+    removed = 0
+    for tmp in Path(out_dir).glob(f".{glob.escape(stem)}*.tmp"):
+        try:
+            tmp.unlink()
+            removed += 1
+        except OSError:
+            pass
+    return removed
+
+
+def _facts(rep: NightReport, result: Path) -> None:
+    """Rows, hours, flags counted and verdicts of an existing result, for the batch index of
+    a night that is skipped (only attributes and small tables are read)."""
+    import h5py
+
+    try:
+        with h5py.File(result, "r") as f:
+            t = f["timeseries/time"]
+            rep.rows = int(t.shape[0])
+            if rep.rows > 1:
+                rep.hours = float((t[-1] - t[0]) / 3600.0)
+            if "flags/check" in f:
+                checks = f["flags/check"].asstr()[()]
+                rep.flags = {str(c): int((checks == c).sum()) for c in sorted(set(checks))}
+            verdicts = f.attrs.get("instrument_verdicts")
+            if verdicts is not None:
+                rep.verdicts = dict(json.loads(verdicts))
+    except (OSError, KeyError, ValueError):
+        pass
+
+
 def up_to_date(result: Path, source_sha256: str, config_sha256: str, version: str) -> bool:
     """Whether ``result`` was made from the same input bytes, resolved config and tool
     version (then the night is skipped unless ``--force``)."""
@@ -138,9 +186,12 @@ def process_night(
             if not p.is_file():
                 raise InputDataError(f"{p}: not a regular file (a folder, pipe or device); "
                                      "give the log file itself.")
+        remove_stale_temporaries(Path(out_dir), run_stem(path))
         if joined:
             pass  # rollover files are always processed (their joined digest needs the read)
-        elif not force and up_to_date(result, file_sha256(path), cfg.sha256(), __version__):
+        elif (not force and up_to_date(result, file_sha256(path), cfg.sha256(), __version__)
+              and outputs_complete(result, plots)):
+            _facts(rep, result)
             rep.status, rep.result_file = "skipped", str(result)
             rep.message = "unchanged input, config and tool version; result kept (--force to redo)"
             rep.lines = [f"{path.name} -> {result}  (skipped: {rep.message})"]
@@ -306,16 +357,29 @@ def run_batch(
             except Exception as exc:  # a worker died (e.g. killed): report, go on
                 yield NightReport(run=futures[fut], status="failed", exit_code=1,
                                   message=f"{futures[fut]}: worker failed ({exc}).")
-    finally:
+    except BaseException:  # interrupted (Ctrl-C, SIGTERM, SIGHUP): stop the workers now
         if own:
-            _shutdown(ex)
+            _shutdown(ex, terminate=True)
+        raise
+    if own:
+        _shutdown(ex)
 
 
-def _shutdown(ex: Executor) -> None:
-    """Stop an executor this module made: a process pool with its pending work cancelled; a
-    Dask executor (whose ``shutdown`` takes no ``cancel_futures``) and then its client."""
+def _shutdown(ex: Executor, *, terminate: bool = False) -> None:
+    """Stop an executor this module made: a process pool with its pending work cancelled
+    (with ``terminate``, after an interrupt, its workers are stopped at once: nothing they
+    would commit afterwards is wanted); a Dask executor (whose ``shutdown`` takes no
+    ``cancel_futures``) and then its client."""
     client = getattr(ex, "_client", None)
     if isinstance(ex, ProcessPoolExecutor):
+        if terminate:
+            workers = list((getattr(ex, "_processes", None) or {}).values())
+            for w in workers:
+                w.terminate()
+            ex.shutdown(wait=False, cancel_futures=True)
+            for w in workers:
+                w.join(timeout=10)
+            return
         ex.shutdown(wait=True, cancel_futures=True)
         return
     ex.shutdown(wait=True)

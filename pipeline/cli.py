@@ -17,7 +17,7 @@ from typing import Any
 import click
 
 from . import __version__
-from .atomic import stop_on_interrupt
+from .atomic import stop_on_interrupt, stop_signal
 from .errors import DynoqcError, environment_problem
 
 EXIT_OK, EXIT_INTERNAL, EXIT_CONFIG, EXIT_DATA = 0, 1, 2, 3
@@ -38,7 +38,7 @@ def _guarded(debug: bool, fn: Callable[[], Any]) -> Any:
             traceback.print_exc()
         _fail(str(exc), exc.exit_code)
     except KeyboardInterrupt:
-        _fail("interrupted; no partial result was left behind.", 130)
+        _fail("interrupted; no partial result was left behind.", 128 + stop_signal())
     except OSError as exc:  # the machine, not dynoqc: permission, disk full, a folder ...
         if debug:
             traceback.print_exc()
@@ -135,7 +135,7 @@ def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: b
         with stop_on_interrupt():  # also a Ctrl-C that Python lost on its way up
             run_all()
     except KeyboardInterrupt:
-        _fail("interrupted; no partial result was left behind.", 130)
+        _fail("interrupted; no partial result was left behind.", 128 + stop_signal())
     except DynoqcError as exc:
         _fail(str(exc), exc.exit_code)
     if len(paths) > 1 and not join:

@@ -103,3 +103,65 @@ def test_write_index_is_complete_for_every_status(tmp_path):
     csv_path, json_path = write_index(reps, tmp_path)
     assert len(json.loads(json_path.read_text())) == 2
     assert "drift=1" in csv_path.read_text() and "b.csv: empty" in csv_path.read_text()
+
+
+def test_a_rerun_completes_what_an_interrupted_run_left(tmp_path: Path) -> None:
+    # Outputs are complete-or-redone: a missing figure or summary (a run killed during the
+    # report) makes the rerun redo the night instead of "skipped: unchanged"; a stale
+    # temporary file of the killed run is removed; the index keeps a skipped night's facts.
+    run = tmp_path / "night.csv.gz"
+    shutil.copyfile(ROOT / "sample_runs" / "cell_b3_2026-03-14.csv.gz", run)
+    cfg = ROOT / "configs" / "cell_b3.toml"
+    out = tmp_path / "out"
+    first = process_night(str(run), str(cfg), str(out), True, False, False)
+    assert first.status == "processed"
+    figure = out / "night_lambda.png"
+    figure.unlink()
+    (out / ".night.h5.abc123.tmp").write_bytes(b"half a file")
+    again = process_night(str(run), str(cfg), str(out), True, False, False)
+    assert again.status == "processed" and figure.is_file()
+    assert not list(out.glob(".night*.tmp"))
+    third = process_night(str(run), str(cfg), str(out), True, False, False)
+    assert third.status == "skipped"
+    assert third.rows == first.rows and third.flags == first.flags
+    assert third.verdicts == first.verdicts
+    # a result made without figures is not complete for a run that asks for them
+    nop = tmp_path / "nop"
+    process_night(str(run), str(cfg), str(nop), False, False, False)
+    assert process_night(str(run), str(cfg), str(nop), True, False, False).status == "processed"
+
+
+def test_sigterm_stops_a_batch_and_its_workers(tmp_path: Path) -> None:
+    # SIGTERM is handled like Ctrl-C: exit 128 + 15, nothing committed after it, no worker
+    # left running (a process pool with --jobs 2).
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    runs = []
+    for k in range(6):
+        p = tmp_path / f"n{k}.csv.gz"
+        shutil.copyfile(ROOT / "sample_runs" / "cell_b3_2026-03-14.csv.gz", p)
+        runs.append(str(p))
+    cmd = [sys.executable, "-c", "from pipeline.cli import entry; entry()", "process", *runs,
+           "--config", str(ROOT / "configs" / "cell_b3.toml"), "--out", str(tmp_path / "o"),
+           "--jobs", "2", "--no-progress"]
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            start_new_session=True)
+    time.sleep(6.0)
+    os.kill(proc.pid, signal.SIGTERM)
+    _, err = proc.communicate(timeout=120)
+    assert proc.returncode == 128 + signal.SIGTERM, err
+    assert "Traceback" not in err
+    alive = ["?"]
+    for _ in range(50):  # the stopped workers are reaped within moments (zombies don't count)
+        ps = subprocess.run(["ps", "-o", "stat=", "-s", str(proc.pid)], capture_output=True,
+                            text=True)
+        alive = [st for st in ps.stdout.split() if not st.startswith("Z")]
+        if not alive:
+            break
+        time.sleep(0.2)
+    assert not alive, "processes of the batch still running"
+    assert not list((tmp_path / "o").glob(".*.tmp"))

@@ -44,6 +44,8 @@ def _draw(
             written[mod_name] = list(mod.figure(res, out_dir, stem))
         except FigureSkipped as exc:
             skipped[mod.NAME] = str(exc)
+        except OSError:  # the disk or the folder, not the figure: an error of the run
+            raise
         except Exception as exc:  # one broken figure must not cost the others and the summary
             notes.append(f"figure {mod.NAME!r} failed: {exc!r}")
             skipped[mod.NAME] = f"could not be drawn (internal error: {exc}); please report it"
@@ -96,5 +98,10 @@ def render_report(
         from .summary import write_pdf
 
         outputs.append(write_pdf(summary, out_dir / f"{stem}_summary.pdf"))
-    outputs.append(write_json(summary, out_dir / f"{stem}_summary.json"))
+    # The JSON summary is written last and lists every output: a night whose JSON names
+    # files that all exist is complete (the rerun check of pipeline.batch).
+    json_path = out_dir / f"{stem}_summary.json"
+    summary["outputs"] = [result_path.name, *(p.name for p in outputs), json_path.name]
+    summary["plots"] = bool(plots)
+    outputs.append(write_json(summary, json_path))
     return outputs
