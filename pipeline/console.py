@@ -39,6 +39,6 @@ def night_summary(outcome: NightOutcome) -> list[str]:
     for note in res.attrs.get("warnings", []):
         lines.append(f"  note: {note}")
     for path in outcome.figures:
-        kind = "figure" if path.suffix == ".png" else "summary"
+        kind = {".png": "figure", ".csv": "table", ".xlsx": "table"}.get(path.suffix, "summary")
         lines.append(f"  {kind}: {path}")
     return lines

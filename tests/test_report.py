@@ -324,7 +324,8 @@ def test_render_report_writes_figures_and_summary(night: Path, tmp_path: Path) -
 def test_render_report_no_plots_and_skip_notes(tmp_path: Path) -> None:
     path = _result(tmp_path, drop=("sample_line_temperature",))
     out = render_report(path, tmp_path / "a", plots=False)
-    assert sorted(p.suffix for p in out) == [".json", ".md"]  # no figures, no PDF page
+    # no figures, no PDF page; the steady-point tables are there
+    assert sorted(p.suffix for p in out) == [".csv", ".json", ".md", ".xlsx"]
     out = render_report(path, tmp_path / "b")
     assert not (tmp_path / "b" / "night_water.png").exists()
     s = json.loads((tmp_path / "b" / "night_summary.json").read_text())
@@ -415,3 +416,21 @@ def test_a_broken_figure_is_a_skip_with_its_reason(
         paths, skipped = render.render_figures(read_result(night), tmp_path, "n")
     assert "internal error: boom" in skipped[emissions.NAME] and len(paths) == 6
     assert not list(tmp_path.glob("*.tmp"))
+
+
+def test_steady_point_tables_hold_every_point_with_units(night: Path, tmp_path: Path) -> None:
+    # The table a report is pasted from: one row per steady point, units in the headers,
+    # the same means as the figures' (reportdata), residuals in percent.
+    import pandas as pd
+
+    from pipeline.report.point_table import write_point_tables
+
+    res = read_result(night)
+    paths = write_point_tables(res, tmp_path, "n")
+    table = pd.read_csv(paths[0])
+    pts = rd.steady_point_stats(res)
+    assert len(table) == len(pts) and "speed [rpm]" in table and "carbon - flow [%]" in table
+    np.testing.assert_allclose(table["carbon - flow [%]"],
+                               100 * pts["residual_carbon_flow"], rtol=1e-5)
+    if len(paths) > 1:  # XlsxWriter installed (reading it back would need another library)
+        assert paths[1].suffix == ".xlsx" and paths[1].read_bytes()[:2] == b"PK"

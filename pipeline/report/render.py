@@ -91,8 +91,11 @@ def render_report(
     skipped: dict[str, str] = {}
     if plots:
         figures, skipped = render_figures(res, out_dir, stem)
+    from .point_table import write_point_tables
+
+    tables = write_point_tables(res, out_dir, stem)
     summary = build_summary(res, figures, skipped)
-    outputs = list(figures)
+    outputs = list(figures) + tables
     outputs.append(write_markdown(summary, out_dir / f"{stem}_summary.md"))
     if plots:
         from .summary import write_pdf

@@ -1,11 +1,12 @@
-"""Figure "steady_points": the steady-point table as an image for the test report.
+"""Figure "steady_points": the steady-point table as an image for the test report (one page).
 
 One row per steady point (numbered as in the overview): start (clock time), duration,
 operating point (speed, torque, brake power, fuel flow), the lambda estimates, the residuals
 against ``lambda_flow`` in percent, the 40 CFR 1065.643 carbon-balance error and a verdict
 (``ok``, the fault flags overlapping the point, or ``beyond +-tol``). Values are means over
-steady, valid samples (:func:`pipeline.report.reportdata.steady_point_stats`). Long nights
-are split over several images of at most :data:`ROWS_PER_PAGE` rows.
+steady, valid samples (:func:`pipeline.report.reportdata.steady_point_stats`). The image
+holds the first :data:`ROWS_PER_PAGE` points; every point is in the CSV and Excel tables of
+:mod:`.point_table` (a picture of a 300-row table is neither readable nor fast).
 """
 
 from __future__ import annotations
@@ -158,6 +159,8 @@ def plot_steady_table(res: ResultFile | ProcessResult, out_png: Path) -> list[Pa
     ``res``: a read result file or an in-memory result of :func:`pipeline.process_run`."""
     res = as_result(res)
     pts = table_data(res)
+    total = len(pts)
+    pts = pts.iloc[:ROWS_PER_PAGE]  # one page: the CSV/XLSX tables hold every point
     cols = [c for c in COLUMNS if c[1] in pts and (c[1] == "verdict" or pts[c[1]].notna().any())]
     tol, tol_s, _ = rd.tolerance(res)
     pages = int(np.ceil(len(pts) / ROWS_PER_PAGE))
@@ -172,6 +175,9 @@ def plot_steady_table(res: ResultFile | ProcessResult, out_png: Path) -> list[Pa
         "means over steady, valid samples; residuals and carbon-balance error in %; "
         f"tolerance \u00b1{100 * tol:g} % (sensor \u00b1{100 * tol_s:g} %), bold = beyond"
     )
+    if total > ROWS_PER_PAGE:
+        caption = (f"first {ROWS_PER_PAGE} of {total} points (all in _steady_points.csv); "
+                   + caption)
     for page in range(pages):
         part = pts.iloc[page * ROWS_PER_PAGE : (page + 1) * ROWS_PER_PAGE]
         path = out_png if page == 0 else out_png.with_name(f"{out_png.stem}_{page + 1}.png")
