@@ -293,7 +293,11 @@ def plot_lambda_overview(res: ResultFile | ProcessResult, out_png: Path | None =
         n_bins = max(1, int(BINS_PER_PIXEL * FIGSIZE[0] * DPI))
 
         present = [n for n in LAMBDA_SERIES if rd.series(res, n) is not None]
-        values = [res.timeseries[n].to_numpy(dtype=np.float64) for n in present]
+        # where the engine is off the sensor reads its "in air" value and nothing else has a
+        # lambda: those samples are not drawn (the engine_off spans say why)
+        on = rd.engine_running(res)
+        values = [np.where(on, res.timeseries[n].to_numpy(dtype=np.float64), np.nan)
+                  for n in present]
         ylim = robust_limits(np.concatenate(values) if values else np.array([]))
 
         handles: list[Any] = []

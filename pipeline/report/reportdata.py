@@ -28,6 +28,7 @@ from ..constants import X_CO2_AIR_DRY
 from ..instruments import AVAILABILITY_CHECKS, CORE_INSTRUMENTS, FAULT_CHECKS, RESIDUAL_SERIES
 from ..result import ResultFile
 from ..spans import group_mean_std
+from ..states import running
 
 #: Length of the blocks [s] used to show the spread inside steady points in scatter plots.
 BLOCK_S = 300.0
@@ -131,6 +132,15 @@ def series(res: ResultFile, name: str) -> np.ndarray | None:
         return None
     v = res.timeseries[name].to_numpy(dtype=np.float64)
     return v if np.isfinite(v).any() else None
+
+
+def engine_running(res: ResultFile) -> np.ndarray:
+    """Samples where the engine runs (``engine_state`` idle or running; all samples when the
+    result has no engine state)."""
+    state = series(res, "engine_state")
+    if state is None:
+        return np.ones(len(res.timeseries), dtype=bool)
+    return running(state)
 
 
 def judged_mask(res: ResultFile) -> np.ndarray:
