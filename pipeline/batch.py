@@ -175,8 +175,10 @@ def process_night(
     t0 = time.perf_counter()
     joined = [Path(r) for r in run] if not isinstance(run, str) else None
     path = joined[0] if joined else Path(run)
-    rep = NightReport(run=" + ".join(str(p) for p in joined) if joined else str(path),
-                      status="failed")
+    rep = NightReport(
+        run=" + ".join(str(p.resolve()) for p in joined) if joined else str(path.resolve()),
+        status="failed",
+    )
     try:
         cfg = load_config(config_path)
         result = Path(out_dir) / f"{run_stem(path)}.h5"
@@ -192,7 +194,7 @@ def process_night(
         elif (not force and up_to_date(result, file_sha256(path), cfg.sha256(), __version__)
               and outputs_complete(result, plots)):
             _facts(rep, result)
-            rep.status, rep.result_file = "skipped", str(result)
+            rep.status, rep.result_file = "skipped", str(result.resolve())
             rep.message = "unchanged input, config and tool version; result kept (--force to redo)"
             rep.lines = [f"{path.name} -> {result}  (skipped: {rep.message})"]
             return rep
@@ -201,7 +203,7 @@ def process_night(
             **({"progress": progress} if progress else {}),
         )
         res = outcome.result
-        rep.status, rep.result_file = "processed", str(outcome.result_file)
+        rep.status, rep.result_file = "processed", str(Path(outcome.result_file).resolve())
         rep.outputs = [str(p) for p in outcome.figures]
         rep.lines = night_summary(outcome)
         if res is not None:

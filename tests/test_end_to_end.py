@@ -186,3 +186,12 @@ def test_allocator_settings_are_accepted_by_glibc():
     out = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True,
                          check=True)
     assert out.stdout.strip() == "True"  # in a fresh process: this one stays as it is
+
+
+def test_the_api_under_its_own_name():
+    # `import dynoqc` (a user's own pipeline.py cannot shadow it) gives the public names.
+    import dynoqc
+    import pipeline
+
+    assert dynoqc.process_run is pipeline.process_run
+    assert {"process_run", "read_result", "plot_lambda_overview"} <= set(dir(dynoqc))
