@@ -99,7 +99,32 @@ def atomic_path(path: str | Path) -> Iterator[Path]:
         yield tmp
         if _interrupted.is_set():  # an interrupt that was swallowed on its way up
             raise KeyboardInterrupt
+        _fsync(tmp)  # the bytes reach the disk before the name does (power loss)
         os.replace(tmp, final)
+        _fsync_dir(final.parent)  # and the rename itself
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
+
+
+def _fsync(path: Path) -> None:
+    """Flush a written file to the disk."""
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def _fsync_dir(path: Path) -> None:
+    """Flush a folder's entries (a rename) to the disk, where the system allows it."""
+    try:
+        fd = os.open(path, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:  # some file systems do not sync folders
+        pass
+    finally:
+        os.close(fd)

@@ -34,6 +34,10 @@ def environment_problem(exc: OSError, where: object = None) -> EnvironmentProble
     import errno
 
     name = exc.filename if getattr(exc, "filename", None) else where
+    if name is not None and str(name).endswith(".tmp"):  # our hidden temporary: its folder
+        from pathlib import Path
+
+        name = Path(str(name)).parent
     first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
     reason = exc.strerror or first
     hints = {

@@ -232,3 +232,38 @@ def test_missing_asammdf_gives_the_install_hint(tmp_path: Path, monkeypatch: Any
                                           r"package asammdf; install the mdf extra: pip "
                                           r"install 'dynoqc\[mdf\]'"):
         read_run(path, config(CHANNELS))
+
+
+def test_parquet_decimal_columns_are_read_as_numbers(tmp_path: Path) -> None:
+    # An export with exact decimals (decimal128, as databases write them): numbers, not an
+    # internal error.
+    import decimal
+
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    from pipeline.config import parse_config
+    from pipeline.ingest import read_run
+
+    n = 50
+    tab = pa.table({
+        "t": pa.array(np.arange(n, dtype=float)),
+        "f": pa.array([decimal.Decimal("10.125")] * n, pa.decimal128(10, 3)),
+        "a": pa.array([decimal.Decimal("300.50")] * n, pa.decimal128(10, 2)),
+        "c": pa.array(np.full(n, 9.0)), "o": pa.array(np.full(n, 9.0)),
+    })
+    path = tmp_path / "dec.parquet"
+    pq.write_table(tab, path)
+    cfg = parse_config({
+        "fuel": {"preset": "diesel_2"},
+        "channels": {
+            "time": {"column": "t", "unit": "s"},
+            "fuel_mass_flow": {"column": "f", "unit": "kg/h"},
+            "air_mass_flow": {"column": "a", "unit": "kg/h", "basis": "wet"},
+            "co2": {"column": "c", "unit": "%", "basis": "dry"},
+            "o2": {"column": "o", "unit": "%", "basis": "dry"},
+        },
+    }, tmp_path / "c.toml")
+    run = read_run(path, cfg)
+    assert run.frame["fuel_mass_flow"].iloc[0] == 10.125
+    assert run.frame["air_mass_flow"].iloc[0] == 300.5

@@ -75,6 +75,8 @@ def parquet_source(path: Path) -> Source:
             col = table.column(name)
             if pa.types.is_dictionary(col.type):
                 col = col.cast(col.type.value_type)
+            if pa.types.is_decimal(col.type):  # exact decimals (e.g. decimal128) as float64
+                col = col.cast(pa.float64())
             out[p] = pd.Series(col.to_pandas(), name=name).reset_index(drop=True)
         return out
 

@@ -184,6 +184,15 @@ def _file_unit(src: Source, idx: int) -> str | None:
     return unit
 
 
+def _as_text(values: pd.Series) -> pd.Series:
+    """Cells as stripped text (None stays None): a parser may hand back numbers (a huge
+    integer) or bytes among strings in one object column."""
+    s = pd.Series(values, dtype=object)
+    if not s.map(lambda v: v is None or isinstance(v, str)).all():
+        s = s.map(lambda v: None if v is None or v is pd.NA else str(v))
+    return s.str.strip()
+
+
 #: Longest part of a cell quoted in a message or note (a junk cell may be megabytes).
 QUOTE_MAX = 40
 
@@ -237,7 +246,7 @@ class _Column:
             na = na | (np.isnan(values) & ~na)  # NaN stored in a binary file: missing
         else:
             text = raw.astype(object).where(~na, None)
-            s = pd.Series(text, dtype=object).str.strip()
+            s = _as_text(text)
             if decimal == ",":
                 s = self._ungroup(s)
                 s = s.str.replace(",", ".", regex=False)
@@ -319,7 +328,7 @@ def _clock_times(
     """Date-and-time cells in a common layout (``clock``: detected) or a strftime pattern, to
     UTC (naive clocks in ``[input] timezone``; NaT where unreadable)."""
     s = raw.astype(object).where(raw.notna(), None)
-    s = pd.Series(s, dtype=object).str.strip()
+    s = _as_text(s)
     if fmt == "clock":
         found = detect_clock_format([str(c) for c in s.dropna().head(200)])
         if found is None:
@@ -342,7 +351,7 @@ def _iso_times(raw: pd.Series, tz: str | None, meta: RunMeta, column: str) -> pd
             return _localize(raw, tz, f"Time column '{column}'", meta)
         return raw.dt.tz_convert("UTC")
     s = raw.astype(object).where(raw.notna(), None)
-    s = pd.Series(s, dtype=object).str.strip()
+    s = _as_text(s)
     first = s.dropna()
     naive = not first.empty and ISO_OFFSET_RE.search(str(first.iloc[0])) is None
     if naive:
