@@ -82,10 +82,13 @@ def main() -> None:
               help="RUNS are the rollover files of one night: join them in the order of their "
               "clocks into one result.")
 @click.option("--no-progress", is_flag=True, help="No progress bar on stderr.")
+@click.option("--quiet", "-q", is_flag=True, help="No per-night lines on stdout (errors only).")
+@click.option("--json", "as_json", is_flag=True,
+              help="One JSON object per night on stdout instead of the text lines.")
 @click.option("--debug", is_flag=True, help="Show tracebacks of errors.")
 def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: bool, jobs: int,
-            scheduler: str | None, force: bool, join: bool, no_progress: bool,
-            debug: bool) -> None:
+            scheduler: str | None, force: bool, join: bool, no_progress: bool, quiet: bool,
+            as_json: bool, debug: bool) -> None:
     """Process logged night(s) RUNS (files, folders or glob patterns) into OUT/<run>.h5 plus
     figures and a summary; with several nights also OUT/dynoqc_index.csv and .json."""
     from .batch import expand_inputs, run_batch, write_index
@@ -96,7 +99,7 @@ def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: b
 
     paths = _guarded(debug, lambda: expand_inputs(runs))
     _guarded(debug, lambda: load_config(config_path))  # a bad config stops before any night
-    show = not no_progress and len(paths) > 1 and sys.stderr.isatty()
+    show = not no_progress and not quiet and len(paths) > 1 and sys.stderr.isatty()
     reports = []
     worst = EXIT_OK
 
@@ -107,8 +110,15 @@ def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: b
             if rep.status == "failed":
                 click.echo(f"dynoqc: {rep.message}", err=True)
                 worst = max(worst, rep.exit_code)
-            for line in rep.lines:
-                click.echo(line)
+            if as_json:
+                import dataclasses
+                import json
+
+                night = {k: v for k, v in dataclasses.asdict(rep).items() if k != "lines"}
+                click.echo(json.dumps(night, ensure_ascii=False))
+            elif not quiet:
+                for line in rep.lines:
+                    click.echo(line)
 
     batch = run_batch(paths, config_path, out_dir, plots=not no_plots, force=force,
                       jobs=jobs, scheduler=scheduler, debug=debug)
@@ -118,16 +128,18 @@ def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: b
 
             consume([process_night([str(p) for p in paths], str(config_path), str(out_dir),
                                    not no_plots, force, debug)])
-        elif len(paths) == 1 and not no_progress and sys.stderr.isatty():
+        elif len(paths) == 1 and not no_progress and not quiet and sys.stderr.isatty():
             consume(_single_night_with_progress(paths[0], config_path, out_dir, not no_plots,
                                                 force, debug))
         elif show:
+            # the nights' lines go to stdout once the bar on stderr has finished, so the two
+            # never share a terminal line
+            done: list = []
             with click.progressbar(length=len(paths), label="nights", file=sys.stderr) as bar:
-                def ticking():  # noqa: ANN202
-                    for rep in batch:
-                        bar.update(1)
-                        yield rep
-                consume(ticking())
+                for rep in batch:
+                    bar.update(1)
+                    done.append(rep)
+            consume(done)
         else:
             consume(batch)
 
@@ -143,7 +155,8 @@ def process(runs: tuple[str, ...], config_path: Path, out_dir: Path, no_plots: b
         done = sum(r.status == "processed" for r in reports)
         skipped = sum(r.status == "skipped" for r in reports)
         failed = sum(r.status == "failed" for r in reports)
-        click.echo(f"{done} processed, {skipped} skipped, {failed} failed; index: {csv_path}")
+        if not quiet and not as_json:
+            click.echo(f"{done} processed, {skipped} skipped, {failed} failed; index: {csv_path}")
     sys.exit(worst)
 
 
@@ -165,10 +178,17 @@ def _single_night_with_progress(run: Path, config_path: Path, out_dir: Path, plo
 
 
 @main.command()
-def fuels() -> None:
+@click.option("--json", "as_json", is_flag=True, help="Machine-readable output (JSON).")
+def fuels(as_json: bool) -> None:
     """List the fuel presets and their derived properties."""
     from .fuels import load_presets
 
+    if as_json:
+        import json
+
+        click.echo(json.dumps({name: f.properties() for name, f in load_presets().items()},
+                              indent=2, default=str))
+        return
     click.echo(f"{'preset':<12} {'formula':<16} {'w_C':>7} {'AFR_st':>7}  description")
     for name, f in load_presets().items():
         formula = (f"CH{f.h_c:.3g}" + (f"O{f.o_c:.3g}" if f.o_c else "")) if f.has_carbon \

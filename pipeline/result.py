@@ -52,6 +52,13 @@ class ResultFile:
     path: Path | None = None
 
     @property
+    def table_units(self) -> dict[str, dict[str, str]]:
+        """``units`` of every table column, per table (``/flags/`` included)."""
+        out = {name: dict(t.attrs.get("units", {})) for name, t in self.tables.items()}
+        out["flags"] = dict(self.flags.attrs.get("units", {}))
+        return out
+
+    @property
     def time_h(self) -> np.ndarray:
         """Time since start of run in hours."""
         return self.timeseries["time"].to_numpy(dtype=np.float64) / 3600.0

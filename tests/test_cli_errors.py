@@ -161,3 +161,19 @@ def test_a_closed_pipe_is_not_an_internal_error() -> None:
            "| head -1 >/dev/null; echo ${PIPESTATUS[0]}")
     out = subprocess.run(["bash", "-c", cmd], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "2" and "Traceback" not in out.stderr
+
+
+def test_quiet_and_json_output(tmp_path: Path) -> None:
+    import json
+
+    out = tmp_path / "o"
+    r = _cli(["process", str(SAMPLE), "--config", str(ROOT / "configs" / "cell_b3.toml"),
+              "--out", str(out), "--no-plots", "--json"])
+    assert r.exit_code == 0
+    night = json.loads(r.output.strip().splitlines()[-1])
+    assert night["status"] == "processed" and night["verdicts"]["co2"].startswith("drift")
+    r = _cli(["process", str(SAMPLE), "--config", str(ROOT / "configs" / "cell_b3.toml"),
+              "--out", str(out), "--no-plots", "--quiet"])
+    assert r.exit_code == 0 and r.output.strip() == ""
+    fuels = json.loads(_cli(["fuels", "--json"]).output)
+    assert "diesel_2" in fuels
