@@ -150,7 +150,9 @@ def test_sigterm_stops_a_batch_and_its_workers(tmp_path: Path) -> None:
            "--jobs", "2", "--no-progress"]
     proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
                             start_new_session=True)
-    time.sleep(6.0)
+    deadline = time.monotonic() + 120  # until the batch is under way (a first result)
+    while time.monotonic() < deadline and not list((tmp_path / "o").glob("*.h5")):
+        time.sleep(0.2)
     os.kill(proc.pid, signal.SIGTERM)
     _, err = proc.communicate(timeout=120)
     assert proc.returncode == 128 + signal.SIGTERM, err
