@@ -81,11 +81,15 @@ class Proposal:
 # the common English abbreviations of the trade.
 _PATTERNS: dict[str, list[tuple[str, float]]] = {
     "time": [("time", 3), ("t", 2), ("timestamp", 3), ("elapsed", 2), ("datetime", 3),
-             ("sec", 1)],
-    "speed": [("speed", 3), ("rpm", 3), ("n", 2), ("revs", 2), ("enginespeed", 3)],
-    "torque": [("torque", 3), ("trq", 3), ("tq", 2), ("enginetorque", 3)],
-    "fuel_mass_flow": [("fuel", 3), ("fuelflow", 3), ("mfuel", 3), ("fuelrate", 3)],
-    "air_mass_flow": [("air", 2), ("maf", 3), ("airflow", 3), ("mair", 3), ("intake", 1)],
+             ("sec", 1), ("zeit", 3), ("uhrzeit", 3), ("datum", 2), ("date", 2)],
+    "speed": [("speed", 3), ("rpm", 3), ("n", 2), ("revs", 2), ("enginespeed", 3),
+              ("drehzahl", 4), ("engspd", 3)],
+    "torque": [("torque", 3), ("trq", 3), ("tq", 2), ("enginetorque", 3),
+               ("drehmoment", 4), ("moment", 3), ("md", 2)],
+    "fuel_mass_flow": [("fuel", 3), ("fuelflow", 3), ("mfuel", 3), ("fuelrate", 3),
+                       ("kraftstoff", 4), ("verbrauch", 3), ("kvs", 3), ("be", 1)],
+    "air_mass_flow": [("air", 2), ("maf", 3), ("airflow", 3), ("mair", 3), ("intake", 1),
+                      ("luft", 3), ("luftmasse", 4), ("ml", 2), ("scfm", 2)],
     "co2": [("co2", 4)],
     "co": [("co", 4)],
     "o2": [("o2", 4)],
@@ -98,14 +102,17 @@ _PATTERNS: dict[str, list[tuple[str, float]]] = {
     "ambient_temperature": [("temp", 2), ("temperature", 2), ("ambient", 2), ("amb", 2),
                             ("cell", 1), ("air", 1), ("intake", 1), ("tamb", 3)],
     "ambient_pressure": [("baro", 4), ("barometer", 4), ("press", 2), ("pressure", 2),
-                         ("ambient", 2), ("amb", 2), ("pamb", 3), ("cell", 1)],
-    "ambient_humidity": [("rh", 4), ("humidity", 3), ("humid", 3), ("hum", 2)],
+                         ("ambient", 2), ("amb", 2), ("pamb", 3), ("cell", 1),
+                         ("luftdruck", 4), ("umgebung", 2)],
+    "ambient_humidity": [("rh", 4), ("humidity", 3), ("humid", 3), ("hum", 2),
+                         ("feuchte", 3), ("luftfeuchte", 4), ("rf", 2)],
     "intake_humidity": [("humidity", 2), ("humid", 2), ("abshum", 3), ("moisture", 2)],
     "exhaust_pressure": [("exhaust", 2), ("exh", 2), ("press", 1), ("pressure", 1),
-                         ("pexh", 3)],
-    "sample_line_temperature": [("line", 2), ("sample", 2), ("heated", 1), ("temp", 1)],
+                         ("pexh", 3), ("abgas", 2), ("abgasdruck", 4)],
+    "sample_line_temperature": [("line", 2), ("sample", 2), ("heated", 1), ("temp", 1),
+                                ("leitung", 3)],
     "analyzer_mode": [("mode", 3), ("status", 3), ("state", 2), ("bench", 2),
-                      ("analyzer", 1)],
+                      ("analyzer", 1), ("zustand", 3), ("betrieb", 2)],
 }
 
 # Tokens that rule a quantity out (the name says it is something else).
@@ -121,9 +128,11 @@ _EXCLUDE: dict[str, set[str]] = {
 }
 
 _SUFFIXES = ("dry", "wet", "hot", "raw", "ppm", "pct", "meas", "conc", "flow", "rate", "act",
-             "avg", "mean", "sensor")
-_WET_TOKENS = {"wet", "hot", "heated", "hfid", "raw"}
-_DRY_TOKENS = {"dry", "dried", "chilled", "cold"}
+             "avg", "mean", "sensor", "tr", "feucht", "ist")
+#: Name tokens of a wet (hot, undried) and a dry (after a chiller) sample: a heated FID or
+#: heated NOx analyzer sees the wet sample (common practice), German "feucht"/"trocken".
+_WET_TOKENS = {"wet", "hot", "heated", "hfid", "raw", "feucht", "nass", "hcld"}
+_DRY_TOKENS = {"dry", "dried", "chilled", "cold", "trocken", "tr", "kalt"}
 
 
 def tokens(name: str) -> list[str]:
@@ -262,9 +271,16 @@ def _proposal(q: str, info: ColumnInfo, score: float) -> Proposal:
         elif q == "air_mass_flow":
             p.basis = "wet"
             checks.append("basis: wet is the usual case (the meter sees humid air)")
+        elif q == "thc":
+            p.basis = "wet"  # a FID is heated and measures the hot, undried sample
+            checks.append("basis: wet, as for a heated FID; dry only behind a chiller")
         else:
             p.basis = "dry"
             checks.append("basis: the name does not say dry or wet")
+    if q == "exhaust_pressure" and info.maximum is not None and unit in ("kPa", "kpa"):
+        if info.maximum < 50.0:  # an absolute exhaust pressure is never below ~50 kPa
+            checks.append("gauge pressure? readings below 50 kPa cannot be absolute; use "
+                          "unit = \"kPag\" (the ambient pressure is then added)")
     if q == "thc":
         p.carbon_number = 1.0
         if not re.fullmatch(r"(?i)ppmc1?", (info.unit or "").strip()):

@@ -125,3 +125,24 @@ def test_inspect_unreadable_file_exit_3(tmp_path: Path) -> None:
     bad.write_bytes(b"")
     res = CliRunner().invoke(main, ["inspect", str(bad)])
     assert res.exit_code == 3 and "the file is empty" in res.stderr
+
+
+def test_german_names_hot_fid_and_a_gauge_exhaust_pressure() -> None:
+    # Channel names of a German export (our invented one) map; a FID column is proposed
+    # "wet" (a heated FID sees the hot sample, common practice); an exhaust pressure of
+    # 5-33 kPa cannot be absolute and is marked for checking.
+    def col(name: str, unit: str, lo: float, hi: float) -> ColumnInfo:
+        return ColumnInfo(name, unit, "number", 100, 0, 0, minimum=lo, maximum=hi,
+                          increasing=name == "Zeit")
+
+    cols = [col("Zeit", "s", 0, 99), col("Drehzahl", "1/min", 800, 3000),
+            col("Drehmoment", "Nm", 10, 300), col("Kraftstoff", "kg/h", 1, 20),
+            col("Luftmasse", "kg/h", 50, 700), col("CO2 tr", "%", 2, 12),
+            col("O2 tr", "%", 2, 16), col("THC FID", "ppmC", 10, 300),
+            col("Abgasdruck", "kPa", 5, 33)]
+    p = propose_channels(cols)
+    assert p["speed"].column == "Drehzahl" and p["torque"].column == "Drehmoment"
+    assert p["fuel_mass_flow"].column == "Kraftstoff"
+    assert p["air_mass_flow"].column == "Luftmasse"
+    assert p["co2"].basis == "dry" and p["thc"].basis == "wet"
+    assert any("gauge" in c for c in p["exhaust_pressure"].checks)
