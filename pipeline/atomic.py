@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import os
 import signal
+import sys
 import tempfile
 import threading
 from collections.abc import Iterator
@@ -61,11 +62,20 @@ def stop_on_interrupt() -> Iterator[None]:
             raise KeyboardInterrupt
         raise Terminated(signum)
 
+    def unraisable(info: Any) -> None:
+        # an interrupt raised where Python cannot propagate it (a weakref callback, __del__)
+        # is not lost (the flag stops the run) and needs no traceback on the user's screen
+        if isinstance(info.exc_value, KeyboardInterrupt):
+            return
+        previous_hook(info)
+
     _interrupted.clear()
     _signal_received.clear()
     signals = [signal.SIGINT] + [getattr(signal, n) for n in ("SIGTERM", "SIGHUP")
                                  if hasattr(signal, n)]
     previous = {s: signal.signal(s, handler) for s in signals}
+    previous_hook = sys.unraisablehook
+    sys.unraisablehook = unraisable
     try:
         yield
         if _interrupted.is_set():
@@ -73,6 +83,7 @@ def stop_on_interrupt() -> Iterator[None]:
     finally:
         for s, h in previous.items():
             signal.signal(s, h)
+        sys.unraisablehook = previous_hook
         _interrupted.clear()
 
 

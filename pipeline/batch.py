@@ -16,12 +16,15 @@ import json
 import multiprocessing
 import multiprocessing.context
 import os
+import signal
+import sys
 import time
 import traceback
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import Executor, Future, ProcessPoolExecutor, as_completed
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
+from typing import Any
 
 from .atomic import atomic_path
 from .errors import ConfigError, DynoqcError, InputDataError, environment_problem
@@ -273,7 +276,20 @@ def _limit_threads(threads: int) -> None:
 
     tune_allocator()
     pyarrow.set_cpu_count(threads)
+    signal.signal(signal.SIGTERM, _stop_here)
+    default_hook = sys.unraisablehook
 
+    def quiet_interrupts(info: Any) -> None:  # a stop raised inside a weakref callback
+        if not isinstance(info.exc_value, KeyboardInterrupt):
+            default_hook(info)
+
+    sys.unraisablehook = quiet_interrupts
+
+
+def _stop_here(signum: int, frame: object) -> None:
+    """A pool worker asked to stop (SIGTERM from the batch after an interrupt): unwind like
+    Ctrl-C, so the result being written removes its temporary file."""
+    raise KeyboardInterrupt
 
 #: Modules the worker processes start with already imported (forkserver preload), so a
 #: worker does not pay pandas/matplotlib/h5py imports again (about 1 s): the processing
