@@ -20,7 +20,7 @@ def afr_spindt(
     fuel: Fuel, co2_dry: ArrayLike, o2_dry: ArrayLike, co_dry: ArrayLike = 0.0,
     thc_dry: ArrayLike = 0.0,
 ) -> NDArray[np.float64]:
-    """Air/fuel mass ratio by Spindt (SAE 650507, 1965; REFERENCES 3, secondary source [S])::
+    """Air/fuel mass ratio by Spindt (SAE 650507, 1965; REFERENCES 3, commonly quoted form [S])::
 
         AFR = F_B {11.492 F_C (1 + R/2 + Q)/(1 + R) + 120 (1 - F_C)/(3.5 + R)}
         Q = O2/CO2, R = CO/CO2, F_B = (CO2 + CO)/(CO2 + CO + HC_C1),

@@ -2,7 +2,7 @@
 
 J. Brettschneider, "Berechnung des Luftverhaeltnisses lambda von Luft-Kraftstoff-Gemischen
 und des Einflusses von Messfehlern auf lambda", Bosch Technische Berichte 6 (1979) 177-186
-(REFERENCES 2; formula read in a secondary source [S], checked by derivation and
+(REFERENCES 2; the paper was not reachable: its commonly quoted form [S], checked by derivation and
 against the synthetic test vectors of REFERENCES 8).
 """
 
