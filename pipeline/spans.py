@@ -54,3 +54,14 @@ def group_mean_std(
         std = np.sqrt(ss / (count - 1.0))
     std[count < 2] = np.nan
     return mean, std
+
+
+def sample_seconds(time: np.ndarray) -> np.ndarray:
+    """Seconds each sample stands for: the step to the next sample, capped at three typical
+    steps so a hole in the log is not integrated over."""
+    t = np.asarray(time, float)
+    if t.size < 2:
+        return np.ones_like(t)
+    step = float(np.median(np.diff(t)))
+    dt = np.diff(t, append=t[-1] + step)
+    return np.clip(dt, 0.0, 3.0 * step)

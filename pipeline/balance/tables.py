@@ -17,6 +17,7 @@ import pandas as pd
 from .. import constants as C
 from ..config import Verification
 from ..fuels import Fuel
+from ..spans import sample_seconds
 from .driftcor import validation
 from .emissions import carbon_balance_error, carbon_mass_in_exhaust, thc_molar_mass
 
@@ -38,17 +39,6 @@ for _sp in SPECIES:
     UNITS[f"{_sp}_g_per_kWh_driftcor"] = "g/(kW.h)"
     UNITS[f"{_sp}_g_driftcor"] = "g"
     UNITS[f"{_sp}_driftcor_diff"] = "1"
-
-
-def sample_seconds(time: np.ndarray) -> np.ndarray:
-    """Seconds each sample stands for: the step to the next sample, capped at three typical
-    steps so a hole in the log is not integrated over."""
-    t = np.asarray(time, float)
-    if t.size < 2:
-        return np.ones_like(t)
-    step = float(np.median(np.diff(t)))
-    dt = np.diff(t, append=t[-1] + step)
-    return np.clip(dt, 0.0, 3.0 * step)
 
 
 def _row(

@@ -22,6 +22,7 @@ import pandas as pd
 from ..instruments import CORE_INSTRUMENTS
 from ..quantities import DERIVED, GASES
 from ..records import Flag, make_flags
+from ..spans import sample_seconds
 from ..states import running
 from . import attribution as attr_mod
 from .availability import (
@@ -37,7 +38,7 @@ from .quality import out_of_range_flags, time_irregular_flags
 from .residuals import ESTIMATE_COLUMNS, carbon_fuel_flow, compute_residuals, relative_residual
 from .settings import CheckSettings, resolve_settings, thresholds_used
 from .steady import steady_mask, steady_points_table
-from .timebase import format_elapsed, make_clock, median_step
+from .timebase import format_elapsed, make_clock
 from .verdicts import Verdict, judge, verdicts_table
 
 __all__ = ["CheckSettings", "ChecksResult", "run_checks"]
@@ -264,7 +265,8 @@ def run_checks(
     verdicts = judge(
         flags, instruments, drift=drift, start_time=start_time,
         end_s=float(time[-1]) if n else float("nan"), sensitivity=sensitivity,
-        judged_s=_judged_seconds(time, judged_steady), min_judged_s=s["verdict_min_judged_s"],
+        judged_s=float(np.sum(sample_seconds(time)[judged_steady])),
+        min_judged_s=s["verdict_min_judged_s"],
     )
     return ChecksResult(
         series=series,
@@ -275,16 +277,6 @@ def run_checks(
         attrs=attrs,
         verdicts=verdicts,
     )
-
-
-def _judged_seconds(time: np.ndarray, mask: np.ndarray) -> float:
-    """Seconds covered by the ``mask`` samples (each worth its step to the next, capped at
-    the median step so a gap counts nothing)."""
-    if time.size < 2:
-        return 0.0
-    dt = np.diff(time, append=time[-1])
-    step = median_step(time)
-    return float(np.sum(np.minimum(dt, step)[mask]))
 
 
 def _sampling(derived: pd.DataFrame, n: int) -> np.ndarray:

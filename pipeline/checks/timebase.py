@@ -65,6 +65,19 @@ def make_clock(start: datetime | None) -> Callable[[float], str]:
     return clock
 
 
+def describe_time(start: datetime | None, seconds: float, *, with_elapsed: bool = True) -> str:
+    """A time of the night as text, one rounding rule everywhere (:func:`make_clock`):
+    ``03:25 UTC (4.2 h into the run)`` (``03:25 UTC`` without ``with_elapsed``), or
+    ``4.2 h into the run`` when the start is unknown."""
+    if not np.isfinite(seconds):
+        return "unknown time"
+    hours = f"{seconds / 3600.0:.1f} h into the run"
+    if start is None:
+        return hours
+    text = make_clock(start)(seconds)
+    return f"{text} ({hours})" if with_elapsed else text
+
+
 def window_counts(mask: np.ndarray, n: int) -> np.ndarray:
     """Number of True samples in the centred window of ``n`` samples around each sample.
 

@@ -32,7 +32,7 @@ from ..instruments import (
     SUSPECT_ESTIMATE,
     label,
 )
-from .timebase import format_elapsed, make_clock
+from .timebase import describe_time, format_elapsed, make_clock
 
 __all__ = ["VERDICT_COLUMNS", "Verdict", "console_lines", "headline", "judge",
            "verdicts_from_table", "verdicts_table"]
@@ -93,16 +93,6 @@ VERDICT_LONG_NAMES = {
     "evidence": "verdict as a plain sentence with its evidence",
     "flag_rows": "rows of /flags behind the verdict, ;-separated",
 }
-
-
-def _describe_time(start: datetime | None, seconds: float) -> str:
-    """``03:25 UTC (4.2 h into the run)`` or ``4.2 h into the run`` without a known start."""
-    if not np.isfinite(seconds):
-        return "unknown time"
-    hours = f"{seconds / 3600.0:.1f} h into the run"
-    if start is None:
-        return hours
-    return f"{make_clock(start)(seconds)} ({hours})"
 
 
 def _reads_pct(suspect: str, value_pct: float) -> float:
@@ -252,7 +242,7 @@ def judge(
             until = ("to the end of the run" if np.isfinite(end_s) and b >= end_s - 60.0
                      else f"until {clock(b)}")
             what = "drifted" if checks[i] == "drift" else "disagreed with the other instruments"
-            evidence = (f"The {lab} {what} from {_describe_time(start_time, a)} {until}"
+            evidence = (f"The {lab} {what} from {describe_time(start_time, a)} {until}"
                         + _fault_words(name, suspects[i], value[i], reads, reads_abs))
             if checks[i] == "drift":
                 evidence += _drift_shape(drift, float(start[i]))
@@ -281,7 +271,7 @@ def judge(
                 line += f" (+{len(other) - 1} more flag{'s' if len(other) > 2 else ''})"
             msg = messages[i].strip() or checks[i]
             evidence = (f"The {lab} needs attention: {checks[i]} from "
-                        f"{_describe_time(start_time, float(start[i]))} ({msg.rstrip('.')}).")
+                        f"{describe_time(start_time, float(start[i]))} ({msg.rstrip('.')}).")
             out.append(Verdict(
                 name, lab, "attention", suspects[i], checks[i], float(start[rows].min()),
                 float(end[rows].max()), float(value[i]), float("nan"), float("nan"), line,

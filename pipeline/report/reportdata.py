@@ -22,7 +22,7 @@ import pandas as pd
 
 from ..balance.emissions import carbon_balance_error_rate
 from ..checks.settings import DEFAULTS
-from ..checks.timebase import make_clock
+from ..checks.timebase import describe_time
 from ..checks.verdicts import Verdict, judge, verdicts_from_table
 from ..constants import X_CO2_AIR_DRY
 from ..instruments import AVAILABILITY_CHECKS, CORE_INSTRUMENTS, FAULT_CHECKS, RESIDUAL_SERIES
@@ -84,13 +84,7 @@ def clock(res: ResultFile, seconds: float, *, with_elapsed: bool = False) -> str
 
     ``with_elapsed`` adds the hours since the start in brackets to a clock time.
     """
-    if not np.isfinite(seconds):
-        return "unknown time"
-    hours = seconds / 3600.0
-    if res.start_time is None:
-        return f"{hours:.1f} h into the run"
-    text = make_clock(res.start_time)(seconds)
-    return f"{text} ({hours:.1f} h into the run)" if with_elapsed else text
+    return describe_time(res.start_time, seconds, with_elapsed=with_elapsed)
 
 
 def duration_text(seconds: float) -> str:
