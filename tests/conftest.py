@@ -24,3 +24,18 @@ def sample_config() -> Path:
 def sample_run() -> Path:
     """Path of the bundled Cell B3 night."""
     return SAMPLE_RUN
+
+
+def minimal_raw_config() -> dict:
+    """The smallest config a run accepts, as parsed TOML: time, the two flows, CO2 and O2
+    in columns t, f, a, c, o."""
+    return {
+        "fuel": {"preset": "diesel_2"},
+        "channels": {
+            "time": {"column": "t", "unit": "s"},
+            "fuel_mass_flow": {"column": "f", "unit": "kg/h"},
+            "air_mass_flow": {"column": "a", "unit": "kg/h", "basis": "wet"},
+            "co2": {"column": "c", "unit": "%", "basis": "dry"},
+            "o2": {"column": "o", "unit": "%", "basis": "dry"},
+        },
+    }

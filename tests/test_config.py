@@ -4,7 +4,7 @@ import tomllib
 from pathlib import Path
 
 import pytest
-from conftest import ROOT
+from conftest import ROOT, minimal_raw_config
 
 from pipeline.config import load_config, parse_config
 from pipeline.errors import ConfigError
@@ -20,16 +20,7 @@ def test_sample_config_loads_and_resolved_toml_round_trips():
 
 
 def _minimal(**extra):
-    raw = {
-        "fuel": {"preset": "diesel_2"},
-        "channels": {
-            "time": {"column": "t", "unit": "s"},
-            "fuel_mass_flow": {"column": "f", "unit": "kg/h"},
-            "air_mass_flow": {"column": "a", "unit": "kg/h", "basis": "wet"},
-            "co2": {"column": "c", "unit": "%", "basis": "dry"},
-            "o2": {"column": "o", "unit": "%", "basis": "dry"},
-        },
-    }
+    raw = minimal_raw_config()
     raw.update(extra)
     return raw
 

@@ -254,16 +254,9 @@ def test_parquet_decimal_columns_are_read_as_numbers(tmp_path: Path) -> None:
     })
     path = tmp_path / "dec.parquet"
     pq.write_table(tab, path)
-    cfg = parse_config({
-        "fuel": {"preset": "diesel_2"},
-        "channels": {
-            "time": {"column": "t", "unit": "s"},
-            "fuel_mass_flow": {"column": "f", "unit": "kg/h"},
-            "air_mass_flow": {"column": "a", "unit": "kg/h", "basis": "wet"},
-            "co2": {"column": "c", "unit": "%", "basis": "dry"},
-            "o2": {"column": "o", "unit": "%", "basis": "dry"},
-        },
-    }, tmp_path / "c.toml")
+    from conftest import minimal_raw_config
+
+    cfg = parse_config(minimal_raw_config(), tmp_path / "c.toml")
     run = read_run(path, cfg)
     assert run.frame["fuel_mass_flow"].iloc[0] == 10.125
     assert run.frame["air_mass_flow"].iloc[0] == 300.5
